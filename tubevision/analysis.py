@@ -1,0 +1,205 @@
+"""Compose the stages: load → card → tubes → measure → classify → scheme → record.
+
+:func:`analyze_photo` is the library's front door. It takes a decoded
+:class:`~tubevision.image.Photo` and an :class:`AnalysisOptions` and returns a
+:class:`PhotoAnalysis` holding each stage's result by name; turning that into
+files is :mod:`tubevision.record`'s job.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import hashlib
+import logging
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from .errors import TubevisionInputError
+from .image import Photo
+
+__all__ = ["AnalysisOptions", "PhotoAnalysis", "analyze_photo", "card_reference_for", "load_shared"]
+
+log = logging.getLogger(__name__)
+
+
+@dataclass(frozen=True)
+class AnalysisOptions:
+    """Everything the user chose for one analysis, as the CLI parsed it.
+
+    ``layout_boxes`` are ``[x0, y0, x1, y1]`` boxes from ``--layout`` (or None
+    to find tubes); ``labels`` is the raw ``--labels`` text.
+    """
+
+    card_ref: str | None = None
+    no_card: bool = False
+    layout_boxes: tuple[tuple[int, int, int, int], ...] | None = None
+    layout_file: str | None = None
+    expected_tubes: int | None = None
+    scheme: str | None = None
+    step: str | None = None
+    labels: str | None = None
+    model: str | None = None
+    command: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class PhotoAnalysis:
+    """The results of every stage for one photo, passed on by name."""
+
+    photo: Photo
+    options: AnalysisOptions
+    calibration_status: str  # "card" or "none"
+    card_detection: Any  # CardDetection | CardNotFound | None (--no-card)
+    correction: Any  # CardCorrection (the uncalibrated one when status is "none")
+    card_reference: Any  # CardReference or None
+    finding: Any  # TubeFinding
+    measurements: tuple  # TubeMeasurement per region
+    calls: tuple  # TubeCall per region
+    scheme: Any = None  # Scheme or None
+    labels: dict[int, str] = field(default_factory=dict)
+    judgement: Any = None  # StepJudgement or None
+    warnings: tuple[str, ...] = ()
+    ran_at: str = ""
+
+    @property
+    def exit_status(self) -> int:
+        """1 when the user must see a finding (no card found, a control failed), else 0."""
+        if self.calibration_status == "none" and not self.options.no_card:
+            return 1
+        if self.judgement is not None and getattr(self.judgement, "control_failures", ()):
+            return 1
+        return 0
+
+
+def card_reference_for(options: AnalysisOptions):
+    """The card reference values: measured (``--card-ref``) or the card's nominal ones."""
+    from .card.reference import load_card_reference
+
+    return load_card_reference(options.card_ref)
+
+
+def load_shared(options: AnalysisOptions) -> dict:
+    """Parse the data files a batch of photos shares (card reference, scheme, model) once.
+
+    Raises
+    ------
+    TubevisionInputError
+        A malformed card reference, scheme or model file.
+    """
+    from . import classify
+
+    shared = {"card_reference": None, "scheme": None, "model": classify.load_model(options.model)}
+    if not options.no_card:
+        shared["card_reference"] = card_reference_for(options)
+    if options.scheme:
+        from . import scheme as scheme_mod
+
+        shared["scheme"] = scheme_mod.load_scheme(options.scheme)
+    return shared
+
+
+def file_sha256(path: str | Path) -> str:
+    """SHA-256 of a file's bytes, for provenance."""
+    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
+
+
+def analyze_photo(photo: Photo, options: AnalysisOptions = AnalysisOptions(), *,
+                  card_reference=None, scheme=None, model=None) -> PhotoAnalysis:
+    """Run every stage on one photo.
+
+    Parameters
+    ----------
+    photo : the decoded photo (:func:`tubevision.image.load_photo`).
+    options : the user's choices.
+    card_reference, scheme, model : already-loaded objects, so that a batch
+        of photos parses each data file once; loaded from ``options`` when None.
+
+    Returns
+    -------
+    PhotoAnalysis
+
+    Raises
+    ------
+    TubevisionInputError
+        Bad options or data files (unknown scheme or step, labels that do not
+        fit the tubes found, a malformed card reference or model file).
+    """
+    from .card import detect as card_detect
+    from .card import fit as card_fit
+    from . import classify, measure, tubes
+
+    warnings: list[str] = list(photo.meta.warnings)
+    ran_at = _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat()
+
+    # Load the data files first, so that bad input fails before any work.
+    if options.scheme:
+        from . import scheme as scheme_mod
+
+        if scheme is None:
+            scheme = scheme_mod.load_scheme(options.scheme)
+        if not options.step:
+            raise TubevisionInputError("--scheme needs --step (one of: "
+                                       + ", ".join(scheme_mod.step_names(scheme)) + ")")
+        scheme_mod.check_step(scheme, options.step)
+    elif options.step or options.labels:
+        raise TubevisionInputError("--step and --labels need --scheme")
+    if model is None:
+        model = classify.load_model(options.model)
+
+    # card
+    detection = None
+    reference = None
+    correction = card_fit.uncalibrated_correction()
+    status = "none"
+    if options.no_card:
+        warnings.append("run without a card (--no-card): colours are uncalibrated and no mm scale is known")
+    else:
+        reference = card_reference if card_reference is not None else card_reference_for(options)
+        detection = card_detect.find_card(photo.pixels)
+        if detection:
+            correction = card_fit.fit_card_correction(detection, reference)
+            status = "card"
+            warnings.extend(detection.warnings)
+            warnings.extend(correction.warnings)
+        else:
+            warnings.append(f"no reference card found ({detection.reason}): colours are uncalibrated "
+                            "and no mm scale is known")
+    mm_per_px = detection.mm_per_px if status == "card" else None
+
+    # tubes
+    if options.layout_boxes is not None:
+        finding = tubes.tubes_from_layout(photo.pixels, list(options.layout_boxes))
+    else:
+        quad = detection.corners_px if status == "card" else None
+        finding = tubes.find_tubes(photo.pixels, expected=options.expected_tubes, exclude_quad=quad)
+    warnings.extend(finding.warnings)
+
+    # measure, classify
+    measurements = tuple(
+        measure.measure_tube(photo.pixels, region, correction=correction, mm_per_px=mm_per_px)
+        for region in finding.regions
+    )
+    if hasattr(measure, "photo_quality"):
+        warnings.extend(measure.photo_quality(photo.pixels, finding.regions))
+    calls = tuple(classify.classify_tube(m, model=model) for m in measurements)
+
+    # scheme
+    labels: dict[int, str] = {}
+    judgement = None
+    if scheme is not None:
+        from . import scheme as scheme_mod
+
+        labels = scheme_mod.parse_labels(options.labels or "", len(finding.regions))
+        observations = [scheme_mod.observation_from(m, c) for m, c in zip(measurements, calls)]
+        judgement = scheme_mod.judge_step(scheme, options.step, observations, labels)
+        warnings.extend(judgement.warnings)
+    elif options.labels:
+        labels = {}
+
+    return PhotoAnalysis(
+        photo=photo, options=options, calibration_status=status, card_detection=detection,
+        correction=correction, card_reference=reference, finding=finding,
+        measurements=measurements, calls=calls, scheme=scheme, labels=labels,
+        judgement=judgement, warnings=tuple(dict.fromkeys(warnings)), ran_at=ran_at,
+    )

@@ -1,0 +1,224 @@
+"""The command line: a thin layer over the library.
+
+``main(argv)`` parses the arguments, builds one frozen options object, calls
+the library, hands results to :mod:`tubevision.record` and returns the exit
+status: 0 done; 1 analysed, with a finding the user must see (no card found,
+a control failed); 2 bad input or usage, with one line on stderr.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import logging
+import sys
+from pathlib import Path
+
+from . import __version__
+from .errors import TubevisionInputError
+
+__all__ = ["main"]
+
+log = logging.getLogger("tubevision")
+
+DEFAULT_OUT = "tubevision-out"
+"""Output folder when ``--out`` is not given (our own choice)."""
+
+SAFETY_NOTE = (
+    "Safety: the wet tests this tool reads use toxic heavy-metal ions (lead, mercury, silver), "
+    "chromate (Cr(VI), a carcinogen), strong acids and ammonia. Follow your local rules, the "
+    "safety data sheets and licensed practice; the tool reads photos, it does not make the "
+    "bench safe."
+)
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse that reports usage errors as one line and exit status 2."""
+
+    def error(self, message: str):  # noqa: D401 - argparse hook
+        raise TubevisionInputError(f"usage: {message}")
+
+
+def _build_parser() -> argparse.ArgumentParser:
+    p = _Parser(prog="tubevision", description="Calibrated, quantified evidence per tube from a "
+                "photo of a test-tube rack with the tubevision reference card in frame.")
+    p.add_argument("--version", action="version", version=f"tubevision {__version__}")
+    p.add_argument("-v", "--verbose", action="store_true", help="log diagnostics to stderr")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+
+    a = sub.add_parser("analyze", help="analyse rack photos and write evidence records")
+    a.add_argument("photos", nargs="+", metavar="PHOTO")
+    a.add_argument("--out", default=DEFAULT_OUT, help=f"output folder (default: {DEFAULT_OUT})")
+    a.add_argument("--json", action="store_true", help="with one photo: print the record, write nothing")
+    a.add_argument("--card-ref", metavar="FILE", help="measured card values, CGATS.17 text (D50)")
+    a.add_argument("--no-card", action="store_true", help="run uncalibrated on purpose")
+    a.add_argument("--layout", metavar="FILE", help='tube boxes as JSON {"tubes": [{"bbox": [...]}]}')
+    a.add_argument("--tubes", type=int, metavar="N", help="how many tubes to expect")
+    a.add_argument("--scheme", metavar="NAME_OR_FILE", help="test scheme (built-in name or file)")
+    a.add_argument("--step", help="the scheme step this photo shows")
+    a.add_argument("--labels", help='tube labels by position, e.g. "1=control,2=unknown A,3=blank"')
+    a.add_argument("--model", metavar="FILE", help="state classifier parameters (JSON) to use")
+    a.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
+
+    c = sub.add_parser("conclude", help="combine step records into calls per sample")
+    c.add_argument("records", nargs="+", metavar="RECORD.json")
+    c.add_argument("--json", action="store_true", help="print the conclusion as JSON")
+
+    k = sub.add_parser("card", help="write the printable reference card and its nominal values")
+    k.add_argument("--out", required=True, metavar="FILE", help="card.png or card.pdf")
+    k.add_argument("--dpi", type=int, default=300, help="resolution (default 300)")
+    k.add_argument("--overwrite", action="store_true", help="replace existing files")
+
+    d = sub.add_parser("demo", help="render a sample photo of an invented scenario and analyse it")
+    d.add_argument("--out", default="tubevision-demo", help="output folder (default: tubevision-demo)")
+    d.add_argument("--overwrite", action="store_true", help="replace an existing demo folder")
+    return p
+
+
+def _existing_file(path: str | None, what: str) -> str | None:
+    if path is None:
+        return None
+    p = Path(path)
+    if not p.exists():
+        raise TubevisionInputError(f"{what} {path}: no such file")
+    if not p.is_file():
+        raise TubevisionInputError(f"{what} {path}: not a file")
+    return str(p)
+
+
+def _options(args, argv) -> "object":
+    from .analysis import AnalysisOptions
+    from .tubes import parse_layout
+
+    if args.no_card and args.card_ref:
+        raise TubevisionInputError("--no-card and --card-ref exclude each other")
+    if args.json and len(args.photos) != 1:
+        raise TubevisionInputError("--json takes exactly one photo")
+    if args.tubes is not None and not 1 <= args.tubes <= 48:
+        raise TubevisionInputError(f"--tubes: expected 1 to 48, got {args.tubes}")
+    layout_file = _existing_file(args.layout, "--layout")
+    boxes = None
+    if layout_file:
+        try:
+            text = Path(layout_file).read_text("utf-8")
+        except UnicodeDecodeError:
+            raise TubevisionInputError(f"--layout {layout_file}: not UTF-8 text") from None
+        boxes = tuple(parse_layout(text, where=f"--layout {layout_file}"))
+    scheme = args.scheme
+    if scheme and (Path(scheme).suffix or "/" in scheme):
+        _existing_file(scheme, "--scheme")
+    return AnalysisOptions(
+        card_ref=_existing_file(args.card_ref, "--card-ref"), no_card=args.no_card,
+        layout_boxes=boxes, layout_file=layout_file, expected_tubes=args.tubes,
+        scheme=scheme, step=args.step, labels=args.labels,
+        model=_existing_file(args.model, "--model"),
+        command=tuple(["tubevision"] + list(argv)),
+    )
+
+
+def _cmd_analyze(args, argv) -> int:
+    from .analysis import analyze_photo, load_shared
+    from .image import load_photo
+    from .record.folder import write_photo_outputs
+
+    options = _options(args, argv)
+    for photo_path in args.photos:  # fail fast on paths before any work
+        p = Path(photo_path)
+        if not p.exists():
+            raise TubevisionInputError(f"{photo_path}: no such file")
+        if p.is_dir():
+            raise TubevisionInputError(f"{photo_path}: is a folder, not a photo")
+    shared = load_shared(options)
+    status = 0
+    for photo_path in args.photos:
+        photo = load_photo(photo_path)
+        analysis = analyze_photo(photo, options, **shared)
+        if args.json:
+            from .record.build import build_record, to_json
+
+            sys.stdout.write(to_json(build_record(analysis)))
+        else:
+            folder = write_photo_outputs(Path(args.out), Path(photo_path), analysis,
+                                                 overwrite=args.overwrite)
+            log.info("%s: wrote %s", photo_path, folder)
+            print(f"{photo_path}: {len(analysis.finding.regions)} tubes, calibration "
+                  f"{analysis.calibration_status} -> {folder}", file=sys.stderr)
+        for w in analysis.warnings:
+            print(f"{photo.meta.file}: warning: {w}", file=sys.stderr)
+        status = max(status, analysis.exit_status)
+    return status
+
+
+def _cmd_conclude(args) -> int:
+    from .record.build import validate_record
+    from . import scheme as scheme_mod
+
+    records = []
+    for path in args.records:
+        _existing_file(path, "record")
+        try:
+            rec = json.loads(Path(path).read_text("utf-8"))
+        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+            raise TubevisionInputError(f"{path}: not a JSON record ({exc})") from None
+        validate_record(rec, where=path)
+        records.append(rec)
+    conclusion = scheme_mod.conclude(records)
+    if args.json:
+        sys.stdout.write(json.dumps(conclusion, indent=2, ensure_ascii=False, allow_nan=False) + "\n")
+    else:
+        sys.stdout.write(scheme_mod.conclusion_text(conclusion) if hasattr(scheme_mod, "conclusion_text")
+                         else json.dumps(conclusion, indent=2, ensure_ascii=False) + "\n")
+    failed = any(not c.get("passed", True) for c in conclusion.get("controls", {}).values())
+    return 1 if failed else 0
+
+
+def _cmd_card(args) -> int:
+    from .card.printing import write_card
+
+    if not 72 <= args.dpi <= 2400:
+        raise TubevisionInputError(f"--dpi: expected 72 to 2400, got {args.dpi}")
+    written = write_card(args.out, dpi=args.dpi, overwrite=args.overwrite)
+    for path in written if isinstance(written, (list, tuple)) else [written]:
+        print(f"wrote {path}", file=sys.stderr)
+    print("Print at 100 % (no scaling, no 'fit to page') on matte paper; keep the card clean and dry.",
+          file=sys.stderr)
+    return 0
+
+
+def _cmd_demo(args) -> int:
+    from .demo import run_demo
+
+    print(SAFETY_NOTE, file=sys.stderr)
+    summary = run_demo(Path(args.out), overwrite=args.overwrite)
+    sys.stdout.write(summary)
+    return 0
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the command line; returns the exit status (0, 1 or 2)."""
+    argv = list(sys.argv[1:] if argv is None else argv)
+    parser = _build_parser()
+    try:
+        args = parser.parse_args(argv)
+        logging.basicConfig(level=logging.DEBUG if args.verbose else logging.WARNING,
+                            format="%(name)s: %(message)s", stream=sys.stderr)
+        if args.command is None:
+            parser.print_help(sys.stderr)
+            return 2
+        if args.command == "analyze":
+            return _cmd_analyze(args, argv)
+        if args.command == "conclude":
+            return _cmd_conclude(args)
+        if args.command == "card":
+            return _cmd_card(args)
+        if args.command == "demo":
+            return _cmd_demo(args)
+        raise TubevisionInputError(f"unknown command {args.command}")  # pragma: no cover
+    except TubevisionInputError as exc:
+        print(f"tubevision: error: {exc}", file=sys.stderr)
+        return 2
+    except SystemExit as exc:  # --help / --version
+        return int(exc.code or 0)
+    except KeyboardInterrupt:
+        print("tubevision: interrupted", file=sys.stderr)
+        return 130
