@@ -1,0 +1,90 @@
+"""The command line: exit statuses, one-line errors, nothing written on bad input (contract)."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+from PIL import Image
+
+from tubevision.cli import main
+
+
+def _err_line(capsys) -> str:
+    err = capsys.readouterr().err.strip().splitlines()
+    assert err, "expected a message on stderr"
+    return err[-1]
+
+
+@pytest.fixture()
+def plain_photo(tmp_path):
+    arr = np.full((120, 160, 3), 235, np.uint8)
+    path = tmp_path / "plain.jpg"
+    Image.fromarray(arr).save(path)
+    return path
+
+
+@pytest.mark.parametrize(
+    "make, match",
+    [
+        (lambda d: d / "missing.jpg", "no such file"),
+        (lambda d: d, "is a folder"),
+        (lambda d: (d / "z.jpg").write_bytes(b"") or d / "z.jpg", "empty"),
+        (lambda d: (d / "t.jpg").write_text("hello") or d / "t.jpg", "not an image"),
+    ],
+)
+def test_bad_photo_exits_2_and_writes_nothing(tmp_path, capsys, make, match):
+    out = tmp_path / "out"
+    src = tmp_path / "in"
+    src.mkdir()
+    code = main(["analyze", str(make(src)), "--out", str(out), "--no-card"])
+    assert code == 2
+    line = _err_line(capsys)
+    assert line.startswith("tubevision: error:") and match in line
+    assert not out.exists()
+
+
+@pytest.mark.parametrize(
+    "args, match",
+    [
+        (["analyze"], "usage"),
+        (["frobnicate"], "usage"),
+        (["analyze", "{photo}", "--no-card", "--card-ref", "x.txt"], "exclude each other"),
+        (["analyze", "{photo}", "{photo}", "--json", "--no-card"], "exactly one photo"),
+        (["analyze", "{photo}", "--layout", "nope.json"], "--layout nope.json: no such file"),
+        (["analyze", "{photo}", "--tubes", "0"], "--tubes"),
+        (["card", "--out", "{tmp}/c.png", "--dpi", "5"], "--dpi"),
+    ],
+)
+def test_usage_errors_exit_2(tmp_path, capsys, plain_photo, args, match):
+    argv = [a.replace("{photo}", str(plain_photo)).replace("{tmp}", str(tmp_path)) for a in args]
+    assert main(argv) == 2
+    assert match in _err_line(capsys)
+
+
+def test_bad_layout_file_names_the_problem(tmp_path, capsys, plain_photo):
+    layout = tmp_path / "layout.json"
+    layout.write_text('{"tubes": [{"bbox": [10, 10, 5, 50]}]}')
+    assert main(["analyze", str(plain_photo), "--no-card", "--layout", str(layout)]) == 2
+    assert "needs x0 < x1" in _err_line(capsys)
+    layout.write_text('{"tubes": [{"bbox": [10, 10, 50, 500]}]}')
+    assert main(["analyze", str(plain_photo), "--no-card", "--layout", str(layout),
+                 "--out", str(tmp_path / "o")]) == 2
+    assert "reaches outside" in _err_line(capsys)
+    assert not (tmp_path / "o").exists()
+
+
+def test_help_starts_without_heavy_imports():
+    code = ("import sys, tubevision.cli as c\n"
+            "heavy = [m for m in ('numpy', 'cv2', 'skimage', 'sklearn', 'scipy') if m in sys.modules]\n"
+            "print(','.join(heavy))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == ""
+
+
+def test_module_entry_point_runs():
+    out = subprocess.run([sys.executable, "-m", "tubevision", "--version"], capture_output=True, text=True)
+    assert out.returncode == 0 and "tubevision 0.1.0" in out.stdout
