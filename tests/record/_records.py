@@ -83,3 +83,27 @@ def make_record(**changes) -> dict:
     rec = copy.deepcopy(BASE_RECORD)
     rec.update(copy.deepcopy(changes))
     return rec
+
+
+def write_output_folder(folder, record: dict | None = None, *, png: bytes | None = None,
+                        manifest: bool = True):
+    """Write an output folder as the pipeline lays it out (record, image, report, csv, manifest)."""
+    from pathlib import Path
+
+    from tubevision.record.build import to_json
+    from tubevision.record.report import render_report
+    from tubevision.record.table import tubes_csv
+    from tubevision.record.verify import manifest_sha256
+
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=False)
+    record = make_record() if record is None else record
+    png = small_png() if png is None else png
+    files = {"record.json": to_json(record).encode("utf-8"), "annotated.png": png,
+             "report.html": render_report(record, png).encode("utf-8"),
+             "tubes.csv": tubes_csv(record).encode("utf-8")}
+    if manifest:
+        files["manifest.sha256"] = manifest_sha256(files)
+    for name, data in files.items():
+        (folder / name).write_bytes(data)
+    return folder
