@@ -1,0 +1,889 @@
+"""Stage 4, measure: colour, turbidity and settled solid of each tube.
+
+What is measured, and why
+-------------------------
+**Liquid colour.** The contract's ``lab`` is the apparent colour of the liquid
+column over the light backdrop. It is taken from the *central third of the
+tube's width* (``TubeRegion.inner_col0``/``inner_col1``), from a few rows
+below the meniscus down to just above the settled solid or the round bottom.
+Light crosses a cylinder of inner radius r at distance d from the axis along
+a chord of length 2·sqrt(r² − d²) (geometry). Over the central third
+(|d| ≤ r/3) the chord is between 2r·sqrt(8/9) ≈ 0.943·2r and 2r: near its
+maximum and within 6 % of constant, so Beer–Lambert absorption — and the
+colour — is nearly the same in every measured pixel. Outside it the path
+shortens fast (to 0 at the wall), the glass walls refract and reflect, and
+specular streaks sit there. Inside the central third the stage further
+leaves out:
+
+* specular highlights: pixels with any channel ≥ :data:`NEAR_CLIP_SRGB8`
+  (of 255) or with luminance above :data:`HIGHLIGHT_RATIO` × the column's
+  median;
+* the meniscus: :data:`MENISCUS_SKIP_FRACTION` of the tube width below
+  ``liquid_top``;
+* things in front of the tube (the rack's bar) and its shadow: rows whose
+  robust level is below :data:`OCCLUDED_ROW_FRACTION` × the column's level,
+  and, on a banded backdrop, dark runs much longer than the backdrop's bands;
+* the settled solid, when one is found, with a margin above it;
+* where the backdrop is banded, every row where the backdrop *beside* the
+  tube (strips left and right of the glass) is dark, with a margin of rows
+  at each band edge. Colour is measured over the light rows only.
+
+Pixels are converted to linear light only in the window around the tube
+(:func:`tubevision.image.to_linear`), through the card's correction to CIE
+XYZ (D65, white Y = 1), and to CIELAB D65/2° by
+:func:`tubevision.colorimetry.xyz_to_lab`. ``lab`` is the CIELAB of the mean
+XYZ; ``lab_sd`` is the per-channel standard deviation of the pixels' CIELAB,
+``lab_sem`` its standard error of the mean (sd / sqrt(n_eff), n_eff counting
+rows rather than pixels, because neighbouring pixels share JPEG blocks and
+demosaicking and are not independent — common practice).
+
+Turbidity (our own quantity; the README repeats this)
+------------------------------------------------------
+Light scattered by suspended solid adds a veil of light that does not depend
+on what lies behind the tube; dissolved colour absorbs, scaling the light
+from behind without adding any. With luminance Y (linear light) through the
+liquid over the backdrop's light rows ``I_L = T·R_L + S`` and over its dark
+rows ``I_D = T·R_D + S`` (T transmittance, S scattered-back veil), the
+Michelson contrast (I_L − I_D) / (I_L + I_D) is unchanged by absorption
+alone (S = 0 gives R-contrast whatever T is) and falls as S grows. So, on
+the banded backdrop (:mod:`tubevision.backdrop`),
+
+    τ = −ln(C_through / C_beside),   C = (Y_light − Y_dark) / (Y_light + Y_dark)
+
+with C_through from the central third of the column and C_beside from the
+backdrop strips beside the glass, in the same rows. τ is dimensionless (an
+optical-depth-like "veil depth", written "1"), 0 means no scattering (clear
+liquid, coloured or not), and with the model above
+τ = ln(1 + 2S / (T·(R_L + R_D))), which rises monotonically with suspended
+solid (S grows and T falls). It is estimated from row medians; its standard
+deviation comes from a seeded bootstrap over rows (:data:`BOOTSTRAP_SEED`,
+:data:`BOOTSTRAP_N`); the raw estimate can be slightly negative from noise
+and is reported clipped at 0 only after the sd is taken.
+
+On a plain light backdrop there is no dark reference behind the tube, so the
+stage falls back on the veil alone: with the same model, ``q = I/B`` (column
+over backdrop beside, per channel) is T + S/B; taking the least-absorbed
+channel (``q_max``, where a coloured solution is nearly transparent)
+τ_plain = max(0, ln(q_max / Q_CLEAR_PLAIN)). This assumes the suspended solid
+is lighter than the backdrop and reads dark suspended solid as clear; the
+tube carries a warning saying so, and the banded backdrop is recommended.
+
+Settled solid
+-------------
+An opaque layer at the bottom: rows along the tube's axis, from the inside
+bottom (``inner_bottom``) upward, whose colour differs from the liquid just
+above by at least :data:`PELLET_MIN_CONTRAST_DE00` (CIEDE2000), forming one
+run from the bottom at least :data:`PELLET_MIN_HEIGHT_MM` high (or
+:data:`PELLET_MIN_HEIGHT_PX` without a scale). On a banded backdrop the run
+must also be opaque: its rows must not follow the backdrop's band pattern
+beside the tube (:data:`PELLET_MAX_BAND_FOLLOW`). The height is measured on
+the axis from the inside bottom of the glass to the sub-row position where
+the colour difference crosses half-way between solid and liquid, times the
+card's mm_per_px.
+
+Uncertainty
+-----------
+``lab_sd``/``lab_sem`` are pixel statistics; ``calibration_de00`` is the
+card fit's mean residual ΔE00 (a stated term, 0 for the uncalibrated sRGB
+assumption, whose error is unknown); ``colour_uncertainty_de00`` combines
+them as sqrt(ΔE_sem² + ΔE_cal²), with ΔE_sem the CIE76 length of
+``lab_sem``. The pellet height's sd combines the edge position's sd (from
+the edge's width) with :data:`INNER_BOTTOM_SD_PX` for the glass bottom's
+position.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .colorimetry import M_SRGB_TO_XYZ, delta_e00, linear_srgb_to_xyz, xyz_to_lab
+from .errors import TubevisionInputError
+from .image import to_linear
+
+__all__ = [
+    "FEATURE_NAMES",
+    "LiquidMeasurement",
+    "PelletMeasurement",
+    "TubeMeasurement",
+    "measure_tube",
+    "photo_quality",
+]
+
+log = logging.getLogger(__name__)
+
+# --------------------------------------------------------------------------- constants
+
+NEAR_CLIP_SRGB8 = 250
+"""Channel code (of 255) counted as clipped or near-clipped (the task's quality limit)."""
+
+CLIPPED_WARN_FRACTION = 0.15
+"""Warn when more than this fraction of channel values in the measured area is clipped:
+a narrow specular streak covers less than this of the central third and is left out;
+more means the exposure clips the liquid itself (chosen)."""
+
+HIGHLIGHT_RATIO = 1.35
+"""A pixel brighter than this × the column's median luminance is a specular highlight
+(glass reflections are several times brighter than the liquid; chosen with margin
+above the ±6 % chord variation of the central third)."""
+
+GLARE_WARN_FRACTION = 0.5
+"""Warn 'glare covers most of the tube' above this fraction of the column's pixels."""
+
+MENISCUS_SKIP_FRACTION = 0.15
+"""Rows skipped below liquid_top, as a fraction of the tube's outer width: the meniscus
+of water in glass rises about one capillary length (~2.7 mm for water, from memory) at
+the wall; on the axis it is a fraction of that."""
+
+PELLET_MARGIN_FRACTION = 0.1
+"""Rows left out above a settled solid, as a fraction of the tube width (blur of its edge)."""
+
+OCCLUDED_ROW_FRACTION = 0.6
+"""A column row darker than this × the column's robust level is hidden (rack bar,
+shadow, label) and left out."""
+
+BAND_MIN_RATIO = 2.0
+"""The backdrop beside the tube counts as banded when its 95th/5th percentile luminance
+ratio is at least this (the printed bands give ~20; shading of a plain sheet < 1.5)."""
+
+BAND_EDGE_SKIP_FRACTION = 0.2
+"""Rows left out at each band edge, as a fraction of the median band height."""
+
+OCCLUDER_RUN_FACTOR = 2.5
+"""A dark run longer than this × the median dark-band height is an occluder, not a band."""
+
+BOOTSTRAP_N = 200
+"""Bootstrap resamples for the turbidity sd (enough for a 10 % precise sd; common practice)."""
+
+BOOTSTRAP_SEED = 20260
+"""Seed for the turbidity bootstrap, so results are reproducible."""
+
+Q_CLEAR_PLAIN = 1.0
+"""Expected column/backdrop ratio of the least-absorbed channel for clear liquid on a
+plain backdrop (the cylinder of liquid relays the backdrop behind it; glass losses of a
+few percent are neglected)."""
+
+PELLET_MIN_CONTRAST_DE00 = 10.0
+"""A settled solid must differ from the liquid above by at least this CIEDE2000 (a
+difference plainly visible side by side; ΔE00 ≈ 1 is a just-noticeable difference,
+common practice)."""
+
+PELLET_MIN_HEIGHT_MM = 0.5
+"""Smallest settled solid reported (mm): below this the glass bottom's own shading
+dominates."""
+
+PELLET_MIN_HEIGHT_PX = 3
+"""Smallest settled solid reported when no mm scale is known (px)."""
+
+PELLET_BOTTOM_SKIP_FRACTION = 0.02
+"""Rows at the inside bottom allowed not to differ (glass bottom shading), as a fraction
+of the tube width."""
+
+PELLET_MAX_BAND_FOLLOW = 0.6
+"""On a banded backdrop, a solid's rows may follow the band pattern beside the tube
+with a correlation up to this; liquid rows follow it closely (≈ 1)."""
+
+PELLET_AXIS_HALF_FRACTION = 0.12
+"""Half-width of the strip along the axis read for the solid, as a fraction of the tube
+width (the round bottom narrows quickly towards its lowest point)."""
+
+INNER_BOTTOM_SD_PX = 1.0
+"""Assumed sd of the tubes stage's inside-bottom row (px), a stated term of the height sd."""
+
+MIN_LIQUID_PIXELS = 200
+"""Fewer measured pixels than this gives the warning 'too few pixels' (the sem of the
+colour then exceeds ~0.1 L* for typical JPEG noise; chosen)."""
+
+MIN_TUBE_WIDTH_PX = 12
+"""Tubes narrower than this (px) get the warning 'too small in the photo' (the central
+third is then four pixels or fewer)."""
+
+BLUR_MAX_EDGE_WIDTH_FRACTION = 0.06
+"""Glass edges wider than this fraction of the tube width (see :func:`_edge_width_px`)
+give the warning 'blurred' (a sharp phone photo spreads an edge over 1–3 px of a
+≥ 60 px wide tube)."""
+
+SIDE_GAP_FRACTION = 0.06
+"""Gap between the tube's box and the backdrop strips beside it (fraction of width)."""
+
+SIDE_STRIP_FRACTION = 0.2
+"""Width of each backdrop strip beside the tube (fraction of the tube width)."""
+
+FEATURE_NAMES: tuple[str, ...] = (
+    "col_L", "col_a", "col_b", "col_chroma",         # CIELAB of the column (D65)
+    "col_L_sd", "col_a_sd", "col_b_sd",              # pixel sd of the column
+    "col_L_top_minus_bottom",                        # L* upper half − lower half (settling)
+    "col_row_cv",                                    # cv of row luminance (light rows)
+    "col_gradient",                                  # mean |dY/drow| / mean Y along the column
+    "transmission_ratio",                            # Y column / Y backdrop beside (light rows)
+    "col_backdrop_de00",                             # ΔE00 column vs backdrop beside (light rows)
+    "turbidity", "turbidity_raw", "turbidity_sd",    # τ (see module docstring)
+    "band_contrast_ratio",                           # C_through / C_beside (1.0 on plain backdrop)
+    "backdrop_banded",                               # 1.0 banded, 0.0 plain
+    "meniscus_strength",                             # darkness of the meniscus line (0 none)
+    "above_liquid_de00",                             # ΔE00 column vs tube above the liquid
+    "pellet_present",                                # 1.0 / 0.0
+    "pellet_height_mm",                              # 0.0 when absent or no scale
+    "pellet_height_rel",                             # pellet height px / tube width px
+    "pellet_contrast_de00",                          # ΔE00 solid vs liquid above
+    "pellet_L", "pellet_chroma",                     # of the solid (0 when absent)
+    "pellet_band_follow",                            # corr. of solid rows with the bands
+    "bottom_de00",                                   # ΔE00 bottom region vs column
+    "clipped_fraction", "highlight_fraction",
+    "n_pixels_log10",                                # log10(1 + measured pixel count)
+    "edge_width_rel",                                # glass edge width / tube width (blur)
+)
+"""Names of :attr:`TubeMeasurement.features`, in a stable order, for the state classifier.
+
+Neutral values where a quantity does not apply: empty tube → column features from the
+inside of the glass; plain backdrop → ``band_contrast_ratio`` = 1; no solid → pellet
+features 0. No feature is ever NaN."""
+
+
+# --------------------------------------------------------------------------- results
+
+@dataclass(frozen=True)
+class LiquidMeasurement:
+    """The liquid column of one tube.
+
+    ``lab`` CIELAB D65/2° (L* 0–100) of the mean XYZ; ``lab_sd`` per-channel pixel sd;
+    ``lab_sem`` its standard error; ``n_pixels`` measured pixels; ``turbidity`` τ ≥ 0
+    (dimensionless, module docstring) and ``turbidity_sd``; ``clipped_fraction`` of
+    channel values ≥ 250/255 in the measured area; ``calibration_de00`` the card's mean
+    residual; ``colour_uncertainty_de00`` the combined colour uncertainty;
+    ``turbidity_method`` ``"band-contrast"`` or ``"plain-veil"``;
+    ``turbidity_standard`` the reading in the standards' unit through a fitted curve
+    (None without a curve or outside its range).
+    """
+
+    lab: tuple[float, float, float]
+    lab_sd: tuple[float, float, float]
+    n_pixels: int
+    turbidity: float
+    turbidity_sd: float
+    clipped_fraction: float
+    lab_sem: tuple[float, float, float] = (0.0, 0.0, 0.0)
+    calibration_de00: float = 0.0
+    colour_uncertainty_de00: float = 0.0
+    turbidity_raw: float = 0.0
+    turbidity_method: str = "band-contrast"
+    turbidity_standard: float | None = None
+    turbidity_standard_unit: str | None = None
+
+
+@dataclass(frozen=True)
+class PelletMeasurement:
+    """Settled solid at the bottom: ``height_mm`` (None without a scale or when absent)
+    on the axis from the inside bottom; ``lab``/``lab_sd`` CIELAB D65 of the solid."""
+
+    present: bool
+    height_mm: float | None = None
+    height_mm_sd: float | None = None
+    lab: tuple[float, float, float] | None = None
+    lab_sd: tuple[float, float, float] | None = None
+    n_pixels: int = 0
+    height_px: float = 0.0
+    contrast_de00: float = 0.0
+
+
+@dataclass(frozen=True)
+class TubeMeasurement:
+    """All measurements of one tube; ``features`` has the keys of :data:`FEATURE_NAMES`."""
+
+    index: int
+    empty: bool
+    liquid: LiquidMeasurement | None
+    pellet: PelletMeasurement
+    features: dict[str, float]
+    warnings: tuple[str, ...] = field(default_factory=tuple)
+
+
+# --------------------------------------------------------------------------- helpers
+
+_Y_WEIGHTS = np.asarray(M_SRGB_TO_XYZ[1], dtype=np.float32)
+
+
+def _to_xyz(correction, rgb_linear: np.ndarray) -> np.ndarray:
+    """Linear camera RGB (..., 3) to XYZ D65 through the card correction.
+
+    Falls back on the plain sRGB assumption (IEC 61966-2-1) when ``correction`` is None
+    or the card module is not installed."""
+    if correction is not None:
+        try:
+            from .card.fit import apply_card_correction
+        except ImportError:  # card stage not present in this checkout
+            apply_card_correction = None
+        if apply_card_correction is not None:
+            return np.asarray(apply_card_correction(correction, rgb_linear), dtype=np.float64)
+    return linear_srgb_to_xyz(np.asarray(rgb_linear, dtype=np.float64))
+
+
+def _luminance(rgb_linear: np.ndarray) -> np.ndarray:
+    """Relative luminance of linear sRGB (IEC 61966-2-1 matrix, row Y)."""
+    return rgb_linear @ _Y_WEIGHTS
+
+
+def _runs(mask: np.ndarray) -> list[tuple[int, int, bool]]:
+    """Runs of equal values in a 1-D bool array as (start, stop, value)."""
+    if mask.size == 0:
+        return []
+    edges = np.flatnonzero(np.diff(mask.astype(np.int8))) + 1
+    starts = np.concatenate([[0], edges])
+    stops = np.concatenate([edges, [mask.size]])
+    return [(int(a), int(b), bool(mask[a])) for a, b in zip(starts, stops)]
+
+
+def _validate(pixels, region, mm_per_px) -> None:
+    if not isinstance(pixels, np.ndarray) or pixels.ndim != 3 or pixels.shape[2] != 3:
+        shape = getattr(pixels, "shape", None)
+        raise TubevisionInputError(f"pixels must be an (H, W, 3) RGB array, got shape {shape}")
+    if pixels.dtype not in (np.uint8, np.uint16):
+        raise TubevisionInputError(f"pixels must be uint8 or uint16 sRGB-encoded, got {pixels.dtype}")
+    h, w = pixels.shape[:2]
+    x0, y0, x1, y1 = region.bbox
+    if not (0 <= x0 < x1 <= w and 0 <= y0 < y1 <= h):
+        raise TubevisionInputError(f"tube {region.index + 1}: bbox {list(region.bbox)} is outside the {w}x{h} photo")
+    if mm_per_px is not None and not (np.isfinite(mm_per_px) and mm_per_px > 0):
+        raise TubevisionInputError(f"mm_per_px must be a positive number or None, got {mm_per_px}")
+
+
+@dataclass(frozen=True)
+class _Window:
+    """Linear-light window around one tube and its beside strips (internal)."""
+
+    lin: np.ndarray          # (rows, cols, 3) float32 linear
+    clip: np.ndarray         # (rows, cols) bool, any channel near-clipped
+    row0: int                # full-res row of lin[0]
+    col0: int                # full-res col of lin[:, 0]
+    side_cols: np.ndarray    # window columns of the beside strips
+
+
+def _window(pixels: np.ndarray, region) -> _Window:
+    h, w = pixels.shape[:2]
+    x0, y0, x1, y1 = region.bbox
+    width = x1 - x0
+    gap = max(1, int(round(width * SIDE_GAP_FRACTION)))
+    strip = max(2, int(round(width * SIDE_STRIP_FRACTION)))
+    c0 = max(0, x0 - gap - strip)
+    c1 = min(w, x1 + gap + strip)
+    sub = pixels[y0:y1, c0:c1]
+    top = np.iinfo(pixels.dtype).max
+    clip = (sub >= np.ceil(NEAR_CLIP_SRGB8 / 255.0 * top)).any(axis=2)
+    left = np.arange(max(0, x0 - gap - strip), max(0, x0 - gap))
+    right = np.arange(min(w, x1 + gap), min(w, x1 + gap + strip))
+    side = np.concatenate([left, right]) - c0
+    return _Window(lin=to_linear(sub), clip=clip, row0=y0, col0=c0, side_cols=side.astype(int))
+
+
+def _lab_stats(correction, rgb: np.ndarray, n_eff: int):
+    """Mean-XYZ Lab, pixel Lab sd and sem of linear RGB pixels (N, 3)."""
+    xyz = _to_xyz(correction, rgb)
+    lab_px = xyz_to_lab(np.clip(xyz, 0.0, None))
+    lab = xyz_to_lab(np.clip(xyz.mean(axis=0), 0.0, None))
+    sd = lab_px.std(axis=0, ddof=1) if len(rgb) > 1 else np.zeros(3)
+    sem = sd / math.sqrt(max(1, n_eff))
+    return lab, sd, sem
+
+
+def _row_lab(correction, rgb_rows: np.ndarray) -> np.ndarray:
+    """Lab of per-row linear RGB medians (R, 3)."""
+    return xyz_to_lab(np.clip(_to_xyz(correction, rgb_rows), 0.0, None))
+
+
+def _michelson(light: np.ndarray, dark: np.ndarray) -> float:
+    lo, da = float(np.median(light)), float(np.median(dark))
+    return (lo - da) / max(lo + da, 1e-9)
+
+
+def _edge_width_px(y_rows: np.ndarray, col: int, half: int) -> float:
+    """Width of a vertical glass edge (px): step height / steepest slope of the row-median
+    horizontal profile around column ``col`` (an ideal step gives 1; a Gaussian blur of
+    sd σ gives σ·sqrt(2π) ≈ 2.5σ — geometry of the normal distribution)."""
+    c0, c1 = max(0, col - half), min(y_rows.shape[1], col + half + 1)
+    if c1 - c0 < 3:
+        return float("nan")
+    prof = np.median(y_rows[:, c0:c1], axis=0)
+    step = float(prof.max() - prof.min())
+    slope = float(np.abs(np.diff(prof)).max())
+    if step <= 1e-4 or slope <= 1e-9:
+        return float("nan")
+    return step / slope
+
+
+# --------------------------------------------------------------------------- main
+
+def measure_tube(pixels: np.ndarray, region, *, correction=None, mm_per_px: float | None = None,
+                 turbidity_curve=None) -> TubeMeasurement:
+    """Measure colour, turbidity and settled solid of one tube.
+
+    Parameters
+    ----------
+    pixels : ndarray of shape (H, W, 3), uint8 or uint16
+        The full-resolution upright photo, sRGB-encoded (``Photo.pixels``).
+    region : tubevision.tubes.TubeRegion
+        Where the tube is (full-resolution px).
+    correction : tubevision.card.fit.CardCorrection or None, keyword-only
+        Card colour correction (``uncalibrated_correction()`` when there is no card);
+        None means the plain sRGB assumption.
+    mm_per_px : float or None, keyword-only
+        Scale at the rack from the card (mm per px); None leaves heights in px only.
+    turbidity_curve : tubevision.turbidity.TurbidityCurve or None, keyword-only
+        Fitted standards curve; when given, the liquid's ``turbidity_standard`` is filled.
+
+    Returns
+    -------
+    TubeMeasurement
+        ``liquid`` is None for an empty tube (``region.liquid_top`` None, or no
+        measurable liquid rows).
+
+    Raises
+    ------
+    TubevisionInputError
+        Pixels not (H, W, 3) uint8/uint16, bbox outside the photo, bad mm_per_px.
+    """
+    _validate(pixels, region, mm_per_px)
+    warnings: list[str] = []
+    tid = f"T{region.index + 1}"
+    win = _window(pixels, region)
+    x0, y0, x1, y1 = region.bbox
+    width = x1 - x0
+    y_win = _luminance(win.lin)                       # (rows, cols)
+    n_rows = y_win.shape[0]
+
+    if width < MIN_TUBE_WIDTH_PX:
+        warnings.append(f"{tid}: tube only {width} px wide in the photo; move closer for reliable numbers")
+
+    # backdrop beside the tube, row by row
+    if win.side_cols.size:
+        beside_y = np.median(y_win[:, win.side_cols], axis=1)
+        beside_rgb = np.median(win.lin[:, win.side_cols], axis=1)
+    else:
+        beside_y = np.full(n_rows, np.nan)
+        beside_rgb = np.full((n_rows, 3), np.nan)
+    light_rows, dark_rows, banded, occluded = _classify_rows(beside_y)
+
+    ic0, ic1 = region.inner_col0 - win.col0, region.inner_col1 - win.col0
+    inner_y = y_win[:, ic0:ic1]
+    inner_rgb = win.lin[:, ic0:ic1]
+    inner_clip = win.clip[:, ic0:ic1]
+    col_row_y = np.median(inner_y, axis=1)
+
+    # settled solid first: the column stops above it
+    pellet, pellet_info = _find_pellet(win, region, correction, mm_per_px, light_rows, dark_rows,
+                                       banded, beside_y)
+
+    empty = region.liquid_top is None
+    top = (region.liquid_top if region.liquid_top is not None else y0) - y0
+    menisc = int(round(MENISCUS_SKIP_FRACTION * width))
+    bottom = region.liquid_bottom - y0
+    if pellet.present:
+        bottom = min(bottom, int(math.floor(region.inner_bottom - pellet.height_px
+                                            - PELLET_MARGIN_FRACTION * width)) - y0)
+    col_rows = np.zeros(n_rows, bool)
+    col_rows[max(0, top + menisc):max(0, min(n_rows, bottom))] = True
+
+    # rows hidden by something in front (rack bar) or in its shadow
+    use_light = col_rows & light_rows & ~occluded
+    if use_light.any():
+        level = float(np.median(col_row_y[use_light]))
+        hidden = col_row_y < OCCLUDED_ROW_FRACTION * level
+        use_light &= ~hidden
+    use_dark = col_rows & dark_rows & ~occluded
+
+    # highlights and clipping within the measured rows
+    meas = np.zeros_like(inner_clip)
+    meas[use_light] = True
+    med = float(np.median(inner_y[use_light])) if use_light.any() else 0.0
+    highlight = inner_clip | (inner_y > HIGHLIGHT_RATIO * med)
+    n_meas = int(meas.sum())
+    clipped_fraction = (float((pixels[y0:y1, win.col0 + ic0:win.col0 + ic1][meas]
+                               >= np.ceil(NEAR_CLIP_SRGB8 / 255.0 * np.iinfo(pixels.dtype).max)).mean())
+                        if n_meas else 0.0)
+    highlight_fraction = float(highlight[meas].mean()) if n_meas else 0.0
+    good = meas & ~highlight
+    n_good = int(good.sum())
+
+    cal_de = float(getattr(correction, "mean_de00", 0.0) or 0.0) if correction is not None else 0.0
+    liquid = None
+    col_lab = np.full(3, np.nan)
+    lab_sd = np.zeros(3)
+    tau = dict(value=0.0, raw=0.0, sd=0.0, ratio=1.0, method="none")
+    if not empty and n_good >= 3:
+        rgb = inner_rgb[good]
+        n_eff = int(good.any(axis=1).sum())
+        col_lab, lab_sd, lab_sem = _lab_stats(correction, rgb, n_eff)
+        tau = _turbidity(inner_y, inner_rgb, good, use_light, use_dark, beside_y, beside_rgb, banded,
+                         highlight)
+        de_sem = float(np.linalg.norm(lab_sem))
+        t_std, t_unit = None, None
+        if turbidity_curve is not None:
+            from .turbidity import to_standard_units
+
+            t_std, w = to_standard_units(turbidity_curve, tau["value"])
+            t_unit = turbidity_curve.unit
+            if w:
+                warnings.append(f"{tid}: {w}")
+        liquid = LiquidMeasurement(
+            lab=tuple(float(v) for v in col_lab), lab_sd=tuple(float(v) for v in lab_sd),
+            n_pixels=n_good, turbidity=float(tau["value"]), turbidity_sd=float(tau["sd"]),
+            clipped_fraction=clipped_fraction, lab_sem=tuple(float(v) for v in lab_sem),
+            calibration_de00=cal_de, colour_uncertainty_de00=float(math.hypot(de_sem, cal_de)),
+            turbidity_raw=float(tau["raw"]), turbidity_method=tau["method"],
+            turbidity_standard=t_std, turbidity_standard_unit=t_unit)
+        if n_good < MIN_LIQUID_PIXELS:
+            warnings.append(f"{tid}: too few pixels measured ({n_good} < {MIN_LIQUID_PIXELS}); "
+                            "move closer or use a higher resolution")
+        if tau["method"] == "plain-veil":
+            warnings.append(f"{tid}: plain backdrop, turbidity read from brightness only (dark suspended "
+                            "solid reads as clear); use the banded backdrop for a contrast reading")
+    elif not empty:
+        empty = True
+        warnings.append(f"{tid}: no measurable liquid rows (hidden, glare or too small); reported empty")
+
+    if clipped_fraction > CLIPPED_WARN_FRACTION:
+        warnings.append(f"{tid}: {100 * clipped_fraction:.0f} % of the measured values are clipped "
+                        "highlights; lower the exposure")
+    if highlight_fraction > GLARE_WARN_FRACTION:
+        warnings.append(f"{tid}: glare covers most of the tube; move the light or the camera")
+
+    edge = _tube_edge_width(y_win, region, win)
+    if np.isfinite(edge) and edge > BLUR_MAX_EDGE_WIDTH_FRACTION * width:
+        warnings.append(f"{tid}: the tube's edges look blurred (motion or focus); hold the camera still")
+
+    features = _features(region, win, y_win, inner_y, inner_rgb, col_row_y, col_lab, lab_sd, good,
+                         use_light, beside_y, beside_rgb, banded, tau, pellet, pellet_info,
+                         clipped_fraction, highlight_fraction, n_good, edge, correction)
+    return TubeMeasurement(index=region.index, empty=bool(empty), liquid=liquid, pellet=pellet,
+                           features=features, warnings=tuple(warnings))
+
+
+def _classify_rows(beside_y: np.ndarray):
+    """Light/dark rows of the backdrop beside the tube, whether it is banded, and the
+    rows taken by an occluder (dark runs much longer than a band)."""
+    n = beside_y.size
+    light = np.ones(n, bool)
+    dark = np.zeros(n, bool)
+    occluded = np.zeros(n, bool)
+    if n == 0 or not np.isfinite(beside_y).all():
+        return light, dark, False, occluded
+    p5, p95 = np.percentile(beside_y, [5, 95])
+    if p95 <= 0 or p95 / max(p5, 1e-6) < BAND_MIN_RATIO:
+        # plain backdrop; a long dark stretch beside the tube is an occluder or shadow
+        level = float(np.median(beside_y))
+        occluded = beside_y < OCCLUDED_ROW_FRACTION * level
+        return ~occluded, dark, False, occluded
+    thr = math.sqrt(max(p5, 1e-6) * p95)
+    is_light = beside_y > thr
+    runs = _runs(is_light)
+    dark_runs = [(a, b) for a, b, v in runs if not v]
+    light_runs = [(a, b) for a, b, v in runs if v]
+    banded = len(dark_runs) >= 2 and len(light_runs) >= 2
+    if not banded:
+        occluded = ~is_light
+        return is_light.copy(), dark, False, occluded
+    inner = [b - a for a, b in dark_runs if a > 0 and b < n] or [b - a for a, b in dark_runs]
+    band_h = float(np.median(inner))
+    for a, b in dark_runs:
+        if b - a > OCCLUDER_RUN_FACTOR * band_h:
+            occluded[a:b] = True
+    skip = max(1, int(round(BAND_EDGE_SKIP_FRACTION * band_h)))
+    light = is_light.copy()
+    dark = ~is_light & ~occluded
+    for a, b, v in runs:
+        if a > 0:
+            light[max(0, a - skip):min(n, a + skip)] = False
+            dark[max(0, a - skip):min(n, a + skip)] = False
+    dark &= ~occluded
+    light &= ~occluded
+    return light, dark, True, occluded
+
+
+def _bootstrap(fn, groups: list[np.ndarray]) -> float:
+    """sd of ``fn(*groups)`` over a seeded bootstrap of each group's elements."""
+    rng = np.random.default_rng(BOOTSTRAP_SEED)
+    vals = []
+    for _ in range(BOOTSTRAP_N):
+        sample = [g[rng.integers(0, g.size, g.size)] for g in groups]
+        v = fn(*sample)
+        if np.isfinite(v):
+            vals.append(v)
+    return float(np.std(vals, ddof=1)) if len(vals) > 2 else float("nan")
+
+
+def _turbidity(inner_y, inner_rgb, good, use_light, use_dark, beside_y, beside_rgb, banded, highlight):
+    """τ and its sd (module docstring)."""
+    ok = ~highlight
+    row_y = np.array([np.median(inner_y[r][ok[r]]) if ok[r].any() else np.nan
+                      for r in range(inner_y.shape[0])])
+    fin = np.isfinite(row_y)
+    if banded and (use_dark & fin).sum() >= 3 and (use_light & fin).sum() >= 3:
+        tl, td = row_y[use_light & fin], row_y[use_dark & fin]
+        bl, bd = beside_y[use_light & fin], beside_y[use_dark & fin]
+
+        def tau_of(tl, td, bl, bd):
+            ct, cb = _michelson(tl, td), _michelson(bl, bd)
+            if cb <= 0:
+                return float("nan")
+            return -math.log(max(ct, 1e-4) / cb)
+
+        raw = tau_of(tl, td, bl, bd)
+        sd = _bootstrap(tau_of, [tl, td, bl, bd])
+        ratio = math.exp(-raw)
+        return dict(value=max(0.0, raw), raw=raw, sd=sd, ratio=ratio, method="band-contrast")
+    rows = use_light & fin
+    if rows.sum() < 3:
+        return dict(value=0.0, raw=0.0, sd=float("nan"), ratio=1.0, method="plain-veil")
+    row_rgb = np.array([np.median(inner_rgb[r][ok[r]], axis=0) for r in np.flatnonzero(rows)])
+    b_rgb = beside_rgb[rows]
+
+    def tau_plain(c, b):
+        q = np.median(c, axis=0) / np.maximum(np.median(b, axis=0), 1e-6)
+        return math.log(max(float(q.max()), 1e-6) / Q_CLEAR_PLAIN)
+
+    idx = np.arange(row_rgb.shape[0])
+    raw = tau_plain(row_rgb, b_rgb)
+    sd = _bootstrap(lambda i: tau_plain(row_rgb[i], b_rgb[i]), [idx])
+    return dict(value=max(0.0, raw), raw=raw, sd=sd, ratio=1.0, method="plain-veil")
+
+
+def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_rows, banded, beside_y):
+    """Settled solid at the bottom (module docstring). Returns (PelletMeasurement, info)."""
+    x0, y0, x1, y1 = region.bbox
+    width = x1 - x0
+    info = dict(contrast=0.0, band_follow=0.0, bottom_de=0.0, lab=np.zeros(3), height_px=0.0)
+    none = PelletMeasurement(present=False)
+    ax = int(round(region.axis_col)) - win.col0
+    half = max(1, int(round(PELLET_AXIS_HALF_FRACTION * width)))
+    a0, a1 = max(0, ax - half), min(win.lin.shape[1], ax + half + 1)
+    ib = min(region.inner_bottom - y0, win.lin.shape[0] - 1)
+    top = (region.liquid_top if region.liquid_top is not None else y0) - y0
+    if ib - top < 6 or a1 <= a0:
+        return none, info
+    strip = win.lin[top:ib + 1, a0:a1]
+    row_rgb = np.median(strip, axis=1)                    # rows top..ib
+    lab_rows = _row_lab(correction, row_rgb)
+    rows = np.arange(top, ib + 1)
+    # the liquid just above the bottom region, per backdrop class
+    bt = region.bottom_top - y0
+    ref_span = max(4, int(round(1.0 * width)))
+    ref_sel = (rows < bt) & (rows >= bt - ref_span)
+    if ref_sel.sum() < 3:
+        ref_sel = rows < bt
+    if ref_sel.sum() < 2:
+        return none, info
+    ref_light_sel = ref_sel & light_rows[rows]
+    ref_dark_sel = ref_sel & dark_rows[rows]
+    ref_light = np.median(lab_rows[ref_light_sel if ref_light_sel.sum() >= 2 else ref_sel], axis=0)
+    ref_dark = np.median(lab_rows[ref_dark_sel], axis=0) if banded and ref_dark_sel.sum() >= 2 else ref_light
+    ref = np.where(dark_rows[rows][:, None], ref_dark, ref_light)
+    de = delta_e00(lab_rows, ref)
+    # bottom-region difference, whatever is there
+    bsel = rows >= bt
+    info["bottom_de"] = float(np.median(de[bsel])) if bsel.any() else 0.0
+    # one run from the bottom upward
+    skip = max(1, int(round(PELLET_BOTTOM_SKIP_FRACTION * width)))
+    is_solid = de >= PELLET_MIN_CONTRAST_DE00
+    k = len(rows) - 1
+    start = None
+    for j in range(k, max(-1, k - skip - 1), -1):
+        if is_solid[j]:
+            start = j
+            break
+    if start is None:
+        return none, info
+    j = start
+    # allow gaps of one row (noise)
+    while j - 1 >= 0 and (is_solid[j - 1] or (j - 2 >= 0 and is_solid[j - 2])):
+        j -= 1
+    top_j = j
+    run = slice(top_j, start + 1)
+    # sub-row edge: where de crosses half-way between solid and the liquid above
+    solid_level = float(np.median(de[run]))
+    above = de[max(0, top_j - max(3, skip * 2)):top_j]
+    liquid_level = float(np.median(above)) if above.size else 0.0
+    half_level = 0.5 * (solid_level + liquid_level)
+    edge_row = float(rows[top_j]) - 0.5
+    if top_j >= 1 and de[top_j] != de[top_j - 1]:
+        # linear interpolation between the last liquid row and the first solid row
+        f = (half_level - de[top_j - 1]) / (de[top_j] - de[top_j - 1])
+        edge_row = float(rows[top_j - 1]) + float(np.clip(f, 0.0, 1.0))
+    height_px = (region.inner_bottom - y0) + 0.5 - edge_row
+    contrast = float(np.median(delta_e00(lab_rows[run], ref[run])))
+    follow = 0.0
+    if banded:
+        yy = row_rgb[run] @ _Y_WEIGHTS
+        bb = beside_y[rows[run]]
+        if yy.size >= 4 and yy.std() > 0 and bb.std() > 0:
+            follow = float(np.corrcoef(yy, bb)[0, 1])
+    info.update(contrast=contrast, band_follow=follow, height_px=height_px)
+    min_px = PELLET_MIN_HEIGHT_PX if mm_per_px is None else max(PELLET_MIN_HEIGHT_PX - 1,
+                                                                PELLET_MIN_HEIGHT_MM / mm_per_px)
+    if height_px < min_px or contrast < PELLET_MIN_CONTRAST_DE00 or follow > PELLET_MAX_BAND_FOLLOW:
+        return none, info
+    # colour of the solid: the axis strip over the run, highlights out
+    px = win.lin[rows[run][0]:rows[run][-1] + 1, a0:a1].reshape(-1, 3)
+    cl = win.clip[rows[run][0]:rows[run][-1] + 1, a0:a1].reshape(-1)
+    if (~cl).sum() >= 3:
+        px = px[~cl]
+    lab, sd, _ = _lab_stats(correction, px, run.stop - run.start)
+    info["lab"] = lab
+    # edge sd: quantisation (1/sqrt(12) px) ⊕ edge spread ⊕ inner-bottom position
+    edge_sd = 1.0 / math.sqrt(12.0)
+    sd_px = math.sqrt(edge_sd ** 2 + INNER_BOTTOM_SD_PX ** 2)
+    height_mm = None if mm_per_px is None else float(height_px * mm_per_px)
+    height_sd = None if mm_per_px is None else float(sd_px * mm_per_px)
+    return PelletMeasurement(present=True, height_mm=height_mm, height_mm_sd=height_sd,
+                             lab=tuple(float(v) for v in lab), lab_sd=tuple(float(v) for v in sd),
+                             n_pixels=int(px.shape[0]), height_px=float(height_px),
+                             contrast_de00=contrast), info
+
+
+def _tube_edge_width(y_win, region, win) -> float:
+    """Mean width (px) of the tube's two outer glass edges over its light rows."""
+    x0, _, x1, _ = region.bbox
+    width = x1 - x0
+    half = max(2, int(round(0.12 * width)))
+    vals = [_edge_width_px(y_win, c - win.col0, half) for c in (x0, x1 - 1)]
+    vals = [v for v in vals if np.isfinite(v)]
+    return float(np.mean(vals)) if vals else float("nan")
+
+
+def _features(region, win, y_win, inner_y, inner_rgb, col_row_y, col_lab, lab_sd, good, use_light,
+              beside_y, beside_rgb, banded, tau, pellet, pinfo, clipped_fraction, highlight_fraction,
+              n_good, edge, correction) -> dict[str, float]:
+    x0, y0, x1, y1 = region.bbox
+    width = x1 - x0
+    rows_sel = good.any(axis=1)
+    if not np.isfinite(col_lab).all():
+        # empty or unmeasurable: read the inside of the glass above the bottom
+        sel = np.zeros(inner_y.shape[0], bool)
+        sel[: max(1, region.bottom_top - y0)] = True
+        rgb = inner_rgb[sel].reshape(-1, 3)
+        col_lab, lab_sd, _ = _lab_stats(correction, rgb, int(sel.sum()))
+        rows_sel = sel
+    f: dict[str, float] = {}
+    f["col_L"], f["col_a"], f["col_b"] = (float(v) for v in col_lab)
+    f["col_chroma"] = float(math.hypot(col_lab[1], col_lab[2]))
+    f["col_L_sd"], f["col_a_sd"], f["col_b_sd"] = (float(v) for v in lab_sd)
+    idx = np.flatnonzero(rows_sel)
+    if idx.size >= 4:
+        mid = idx.size // 2
+        up = _row_lab(correction, np.median(inner_rgb[idx[:mid]].reshape(-1, 3), axis=0)[None])[0]
+        lo = _row_lab(correction, np.median(inner_rgb[idx[mid:]].reshape(-1, 3), axis=0)[None])[0]
+        f["col_L_top_minus_bottom"] = float(up[0] - lo[0])
+        ry = col_row_y[idx]
+        f["col_row_cv"] = float(ry.std() / max(ry.mean(), 1e-6))
+        g = np.abs(np.diff(inner_y[idx], axis=0)).mean()
+        f["col_gradient"] = float(g / max(inner_y[idx].mean(), 1e-6))
+    else:
+        f["col_L_top_minus_bottom"] = f["col_row_cv"] = f["col_gradient"] = 0.0
+    if idx.size and np.isfinite(beside_y[idx]).all():
+        f["transmission_ratio"] = float(np.median(col_row_y[idx]) / max(np.median(beside_y[idx]), 1e-6))
+        b_lab = _row_lab(correction, np.median(beside_rgb[idx], axis=0)[None])[0]
+        f["col_backdrop_de00"] = float(delta_e00(col_lab, b_lab))
+    else:
+        f["transmission_ratio"], f["col_backdrop_de00"] = 1.0, 0.0
+    f["turbidity"] = float(tau["value"])
+    f["turbidity_raw"] = float(tau["raw"])
+    f["turbidity_sd"] = float(tau["sd"]) if np.isfinite(tau["sd"]) else 0.0
+    f["band_contrast_ratio"] = float(tau["ratio"]) if tau["method"] == "band-contrast" else 1.0
+    f["backdrop_banded"] = 1.0 if banded else 0.0
+    # meniscus: how much darker the rows around liquid_top are than the column below
+    if region.liquid_top is not None and idx.size:
+        lt = region.liquid_top - y0
+        k = max(2, int(round(0.15 * width)))
+        band = col_row_y[max(0, lt - k):min(len(col_row_y), lt + k)]
+        band_light = band[use_light[max(0, lt - k):min(len(col_row_y), lt + k)] |
+                          ~banded] if band.size else band
+        ref = float(np.median(col_row_y[idx]))
+        low = float(band_light.min()) if band_light.size else ref
+        f["meniscus_strength"] = float(max(0.0, 1.0 - low / max(ref, 1e-6)))
+        above = inner_rgb[:max(0, lt - k)]
+        if above.shape[0] >= 2:
+            a_lab = _row_lab(correction, np.median(above.reshape(-1, 3), axis=0)[None])[0]
+            f["above_liquid_de00"] = float(delta_e00(col_lab, a_lab))
+        else:
+            f["above_liquid_de00"] = 0.0
+    else:
+        f["meniscus_strength"] = 0.0
+        f["above_liquid_de00"] = 0.0
+    f["pellet_present"] = 1.0 if pellet.present else 0.0
+    f["pellet_height_mm"] = float(pellet.height_mm) if pellet.present and pellet.height_mm is not None else 0.0
+    f["pellet_height_rel"] = float(pinfo["height_px"] / width) if pellet.present else 0.0
+    f["pellet_contrast_de00"] = float(pinfo["contrast"])
+    plab = np.asarray(pellet.lab) if pellet.present else np.zeros(3)
+    f["pellet_L"] = float(plab[0])
+    f["pellet_chroma"] = float(math.hypot(plab[1], plab[2]))
+    f["pellet_band_follow"] = float(pinfo["band_follow"]) if np.isfinite(pinfo["band_follow"]) else 0.0
+    f["bottom_de00"] = float(pinfo["bottom_de"])
+    f["clipped_fraction"] = float(clipped_fraction)
+    f["highlight_fraction"] = float(highlight_fraction)
+    f["n_pixels_log10"] = float(math.log10(1 + n_good))
+    f["edge_width_rel"] = float(edge / width) if np.isfinite(edge) else 0.0
+    out = {name: (float(f[name]) if np.isfinite(f[name]) else 0.0) for name in FEATURE_NAMES}
+    return out
+
+
+# --------------------------------------------------------------------------- photo level
+
+def photo_quality(pixels: np.ndarray, regions) -> tuple[str, ...]:
+    """Photo-level quality warnings that affect the measurements.
+
+    Checks, over the tube boxes only (no full-frame work): motion or focus blur (the
+    median glass-edge width, :func:`_edge_width_px`, above
+    :data:`BLUR_MAX_EDGE_WIDTH_FRACTION` of the tube width); clipped highlights (more
+    than :data:`CLIPPED_WARN_FRACTION` of channel values ≥ 250/255 in the boxes'
+    central thirds); tubes too small (median width below :data:`MIN_TUBE_WIDTH_PX`).
+
+    Parameters
+    ----------
+    pixels : ndarray (H, W, 3) uint8/uint16, sRGB-encoded, full resolution.
+    regions : sequence of tubevision.tubes.TubeRegion
+
+    Returns
+    -------
+    tuple of str
+        One-line warnings for the record; empty when all is well.
+
+    Raises
+    ------
+    TubevisionInputError
+        Bad pixels or a box outside the photo.
+    """
+    regions = tuple(regions)
+    if not regions:
+        if not isinstance(pixels, np.ndarray) or pixels.ndim != 3:
+            raise TubevisionInputError(f"pixels must be an (H, W, 3) RGB array, got shape "
+                                       f"{getattr(pixels, 'shape', None)}")
+        return ()
+    out: list[str] = []
+    widths, edges, clipped, total = [], [], 0, 0
+    top = np.iinfo(pixels.dtype).max if isinstance(pixels, np.ndarray) and pixels.dtype.kind == "u" else 255
+    thr = np.ceil(NEAR_CLIP_SRGB8 / 255.0 * top)
+    for region in regions:
+        _validate(pixels, region, None)
+        x0, y0, x1, y1 = region.bbox
+        w = x1 - x0
+        widths.append(w)
+        sub = pixels[y0:y1, region.inner_col0:region.inner_col1]
+        clipped += int((sub >= thr).sum())
+        total += sub.size
+        half = max(2, int(round(0.12 * w)))
+        c0, c1 = max(0, x0 - half), min(pixels.shape[1], x1 + half)
+        yy = _luminance(to_linear(pixels[y0:y1, c0:c1]))
+        for c in (x0, x1 - 1):
+            e = _edge_width_px(yy, c - c0, half)
+            if np.isfinite(e):
+                edges.append(e / w)
+    if edges and float(np.median(edges)) > BLUR_MAX_EDGE_WIDTH_FRACTION:
+        out.append("photo looks blurred (motion or focus) at the tube edges; retake it with the camera held still")
+    if total and clipped / total > CLIPPED_WARN_FRACTION:
+        out.append(f"photo is overexposed over the tubes ({100 * clipped / total:.0f} % of values clipped); "
+                   "lower the exposure or move the light")
+    if float(np.median(widths)) < MIN_TUBE_WIDTH_PX:
+        out.append(f"tubes are only ~{int(np.median(widths))} px wide; move closer so each is at least "
+                   f"{MIN_TUBE_WIDTH_PX} px wide")
+    return tuple(out)
