@@ -1,0 +1,558 @@
+"""Judging one photo against one step: verdict per labelled tube, control checks.
+
+The scheme file says what a positive and a negative look like; this module
+measures each labelled tube against those appearances and against the
+positive control and the blank photographed beside it.
+
+Rules (no chemistry here; every appearance comes from the scheme file):
+
+1. A tube whose state confidence is under the scheme's ``min_confidence`` is
+   inconclusive.
+2. It is positive if it matches the step's positive appearance and not the
+   negative one, negative the other way round; matching both or neither, or
+   lacking a reference a threshold needs (no blank labelled…), is
+   inconclusive.
+3. Where the step names a ``compare`` quantity and both a positive control
+   and a blank are labelled, a sample's position between the blank (0) and
+   the control (1) must agree with its verdict: inside the scheme's
+   ``between_band`` or on the wrong side of it, the sample is inconclusive.
+4. The positive control must come out positive and the blank negative (and a
+   standard must show the step's ``standard`` appearance). Otherwise the step
+   is flagged in :attr:`StepJudgement.control_failures` and every sample's
+   verdict for the step becomes inconclusive.
+
+Colour differences are CIEDE2000 (:func:`tubevision.colorimetry.delta_e00`,
+Sharma, Wu & Dalal 2005) between CIELAB D65/2° colours.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any, Sequence
+
+import numpy as np
+
+from ..colorimetry import delta_e00
+from ..errors import TubevisionInputError
+from ._load import Condition, Scheme, Step, role_of, scheme_summary
+
+TURBIDITY_MIN_STANDARD = 1e-6
+"""Smallest standard turbidity (record units) a ratio is taken against; below it
+the ratio is undefined. Reason: guards a division by a zero turbidity."""
+
+CONTROL_SEPARATION_MIN_DE00 = 2.0
+"""Least CIEDE2000 between the positive control and the blank for a colour
+position between them to mean anything. Reason: about twice the just-noticeable
+difference of 1 ΔE00 (common practice in colour tolerancing)."""
+
+TURBIDITY_SEPARATION_MIN = 0.02
+"""Least turbidity difference (record units) between control and blank for a
+turbidity position between them to mean anything. Reason: of the order of the
+noise of the turbidity measure on one tube (set beside the measure stage's
+turbidity_sd; revise with it)."""
+
+VERDICTS = ("positive", "negative", "inconclusive")
+
+
+@dataclass(frozen=True)
+class TubeObservation:
+    """What the scheme sees of one tube (built from measure + classify outputs).
+
+    Attributes
+    ----------
+    index : int — 0-based position in reading order.
+    state : str — ``clear|cloudy|settled|empty``.
+    confidence : float — state confidence in [0, 1].
+    liquid_lab : (L*, a*, b*) or None — CIELAB D65/2° of the liquid, L* in [0, 100]; None when empty.
+    liquid_colour_name : str or None — contract colour word of the liquid.
+    turbidity : float or None — record turbidity units (README), ≥ 0.
+    pellet_present : bool
+    pellet_height_mm : float or None — None when absent or no mm scale.
+    pellet_lab : (L*, a*, b*) or None
+    pellet_colour_name : str or None
+    turbidity_sd : float or None — standard uncertainty of ``turbidity``, if known.
+    """
+
+    index: int
+    state: str
+    confidence: float
+    liquid_lab: tuple[float, float, float] | None
+    liquid_colour_name: str | None
+    turbidity: float | None
+    pellet_present: bool
+    pellet_height_mm: float | None
+    pellet_lab: tuple[float, float, float] | None
+    pellet_colour_name: str | None
+    turbidity_sd: float | None = None
+
+
+def _lab_or_none(v) -> tuple[float, float, float] | None:
+    if v is None:
+        return None
+    a = np.asarray(v, dtype=float).reshape(-1)
+    if a.size != 3 or not np.all(np.isfinite(a)):
+        return None
+    return (float(a[0]), float(a[1]), float(a[2]))
+
+
+def _num_or_none(v) -> float | None:
+    if v is None:
+        return None
+    f = float(v)
+    return f if math.isfinite(f) else None
+
+
+def observation_from(measurement: Any, call: Any) -> TubeObservation:
+    """The :class:`TubeObservation` of one tube from the measure and classify outputs.
+
+    Reads only the documented attributes (docs/design.md): ``measurement.index,
+    .empty, .liquid.lab, .liquid.turbidity[, .turbidity_sd], .pellet.present,
+    .pellet.height_mm, .pellet.lab`` and ``call.state, .confidence,
+    .liquid_colour_name, .pellet_colour_name``.
+    """
+    liq = getattr(measurement, "liquid", None)
+    pel = getattr(measurement, "pellet", None)
+    present = bool(getattr(pel, "present", False))
+    return TubeObservation(
+        index=int(measurement.index),
+        state=str(call.state),
+        confidence=float(call.confidence),
+        liquid_lab=_lab_or_none(getattr(liq, "lab", None)) if liq is not None else None,
+        liquid_colour_name=getattr(call, "liquid_colour_name", None) if liq is not None else None,
+        turbidity=_num_or_none(getattr(liq, "turbidity", None)) if liq is not None else None,
+        pellet_present=present,
+        pellet_height_mm=_num_or_none(getattr(pel, "height_mm", None)) if present else None,
+        pellet_lab=_lab_or_none(getattr(pel, "lab", None)) if present else None,
+        pellet_colour_name=getattr(call, "pellet_colour_name", None) if present else None,
+        turbidity_sd=_num_or_none(getattr(liq, "turbidity_sd", None)) if liq is not None else None,
+    )
+
+
+def observation_from_record(tube: dict) -> TubeObservation:
+    """The :class:`TubeObservation` of one tube of an evidence record (contract keys)."""
+    liq = tube.get("liquid") or {}
+    pel = tube.get("pellet") or {}
+    present = bool(pel.get("present", False))
+    return TubeObservation(
+        index=int(tube["index"]), state=tube["state"], confidence=float(tube["confidence"]),
+        liquid_lab=_lab_or_none(liq.get("lab")), liquid_colour_name=liq.get("colour_name"),
+        turbidity=_num_or_none(liq.get("turbidity")), pellet_present=present,
+        pellet_height_mm=_num_or_none(pel.get("height_mm")) if present else None,
+        pellet_lab=_lab_or_none(pel.get("lab")) if present else None,
+        pellet_colour_name=pel.get("colour_name") if present else None,
+        turbidity_sd=_num_or_none(liq.get("turbidity_sd")),
+    )
+
+
+@dataclass(frozen=True)
+class ControlFailure:
+    """A control, blank or standard that did not show what the step expects of it."""
+
+    position: int
+    label: str
+    role: str
+    expected: str
+    observed: str
+    reason: str
+
+    def __str__(self) -> str:
+        return (f"{self.role} {self.label!r} (T{self.position}) did not show the expected "
+                f"{self.expected} ({self.reason}): check the reagent and the technique")
+
+    def as_dict(self) -> dict:
+        return {"position": self.position, "label": self.label, "role": self.role,
+                "expected": self.expected, "observed": self.observed, "reason": self.reason}
+
+
+@dataclass(frozen=True)
+class TubeOutcome:
+    """The judgement of one labelled tube."""
+
+    index: int
+    position: int
+    label: str
+    role: str
+    verdict: str
+    meaning: str
+    evidence: str
+    confidence: float
+    quantities: dict = field(default_factory=dict, compare=False)
+    warnings: tuple[str, ...] = ()
+
+    def as_dict(self) -> dict:
+        """The record's ``step_outcome`` (contract keys plus ``role``, ``confidence``, ``quantities``)."""
+        return {"verdict": self.verdict, "meaning": self.meaning, "evidence": self.evidence,
+                "role": self.role, "confidence": _round(self.confidence),
+                "quantities": {k: _round(v) for k, v in self.quantities.items()},
+                "warnings": list(self.warnings)}
+
+
+def _round(v, nd: int = 4):
+    # Record form: finite floats rounded, NaN to null (json allow_nan=False).
+    if v is None or isinstance(v, (bool, str)):
+        return v
+    f = float(v)
+    return round(f, nd) if math.isfinite(f) else None
+
+
+@dataclass(frozen=True)
+class StepJudgement:
+    """The judgement of one photo at one step of a scheme."""
+
+    scheme_name: str
+    scheme_source: str
+    scheme_file: str
+    scheme_sha256: str
+    step: str
+    outcomes: tuple[TubeOutcome, ...]
+    control_failures: tuple[ControlFailure, ...] = ()
+    warnings: tuple[str, ...] = ()
+
+    @property
+    def failed(self) -> bool:
+        """True when a control failed: the analysis's exit status becomes 1."""
+        return bool(self.control_failures)
+
+    def outcome_for(self, index: int) -> dict | None:
+        """The record's ``step_outcome`` of the tube at 0-based ``index``; None if unlabelled."""
+        for o in self.outcomes:
+            if o.index == index:
+                return o.as_dict()
+        return None
+
+    def record_block(self) -> dict:
+        """The record's top-level ``scheme`` block (see :func:`scheme_block`)."""
+        return scheme_block(self)
+
+
+def scheme_block(judgement: StepJudgement) -> dict:
+    """The record's top-level ``"scheme"`` block for one judged photo.
+
+    ``{"name", "source", "file", "sha256", "step", "control_failures": [ {position,
+    label, role, expected, observed, reason} ], "roles": {"1": "control", ...},
+    "warnings": [...]}``. ``source`` is the built-in name or path the scheme
+    was loaded from, so that :func:`conclude` can load it again.
+    """
+    return {
+        "name": judgement.scheme_name,
+        "source": judgement.scheme_source,
+        "file": judgement.scheme_file,
+        "sha256": judgement.scheme_sha256,
+        "step": judgement.step,
+        "control_failures": [f.as_dict() for f in judgement.control_failures],
+        "roles": {str(o.position): o.role for o in judgement.outcomes},
+        "warnings": list(judgement.warnings),
+    }
+
+
+# --------------------------------------------------------------------------
+# condition evaluation
+
+
+@dataclass
+class _Refs:
+    control: TubeObservation | None
+    blank: TubeObservation | None
+    standard: TubeObservation | None
+
+
+def _quantities(obs: TubeObservation, refs: _Refs) -> dict[str, float | None]:
+    q: dict[str, float | None] = {"confidence": obs.confidence, "turbidity": obs.turbidity,
+                                  "pellet_height_mm": obs.pellet_height_mm}
+
+    def de(a, b):
+        if a is None or b is None:
+            return None
+        return float(delta_e00(np.asarray(a, float), np.asarray(b, float)))
+
+    b, c, s = refs.blank, refs.control, refs.standard
+    q["turbidity_above_blank"] = (obs.turbidity - b.turbidity
+                                  if b is not None and obs.turbidity is not None and b.turbidity is not None
+                                  else None)
+    q["turbidity_ratio_to_standard"] = (obs.turbidity / s.turbidity
+                                        if s is not None and obs.turbidity is not None and s.turbidity is not None
+                                        and s.turbidity > TURBIDITY_MIN_STANDARD else None)
+    q["liquid_de00_to_blank"] = de(obs.liquid_lab, b.liquid_lab if b else None)
+    q["liquid_de00_to_control"] = de(obs.liquid_lab, c.liquid_lab if c else None)
+    q["pellet_de00_to_control"] = de(obs.pellet_lab, c.pellet_lab if c else None)
+    return q
+
+
+_THRESHOLDS = (
+    # (condition field, quantity, comparison, wording, the reference it needs)
+    ("min_turbidity_above_blank", "turbidity_above_blank", ">=", "turbidity above blank", "blank"),
+    ("max_turbidity_above_blank", "turbidity_above_blank", "<=", "turbidity above blank", "blank"),
+    ("min_liquid_de00_to_blank", "liquid_de00_to_blank", ">=", "liquid ΔE00 to blank", "blank"),
+    ("max_liquid_de00_to_blank", "liquid_de00_to_blank", "<=", "liquid ΔE00 to blank", "blank"),
+    ("max_liquid_de00_to_control", "liquid_de00_to_control", "<=", "liquid ΔE00 to control", "control"),
+    ("min_turbidity_ratio_to_standard", "turbidity_ratio_to_standard", ">=", "turbidity / standard", "standard"),
+    ("max_turbidity_ratio_to_standard", "turbidity_ratio_to_standard", "<=", "turbidity / standard", "standard"),
+    ("min_pellet_height_mm", "pellet_height_mm", ">=", "pellet height mm", None),
+)
+
+
+def _holds(cond: Condition, obs: TubeObservation, q: dict) -> tuple[bool | None, list[str]]:
+    """Whether ``cond`` holds for the tube: True, False, or None (a needed value is missing).
+
+    Returns the verdict and the reasons it does not hold (or cannot be told).
+    """
+    unmet: list[str] = []
+    unknown: list[str] = []
+    if cond.states and obs.state not in cond.states:
+        unmet.append(f"state {obs.state}, not {'/'.join(cond.states)}")
+    if cond.pellet == "present" and not obs.pellet_present:
+        unmet.append("no pellet")
+    if cond.pellet == "absent" and obs.pellet_present:
+        unmet.append("a pellet is present")
+    if cond.pellet_colours and obs.pellet_present and obs.pellet_colour_name not in cond.pellet_colours:
+        unmet.append(f"pellet {obs.pellet_colour_name}, not {'/'.join(cond.pellet_colours)}")
+    if cond.liquid_colours and obs.liquid_colour_name not in cond.liquid_colours:
+        unmet.append(f"liquid {obs.liquid_colour_name}, not {'/'.join(cond.liquid_colours)}")
+    for fld, key, op, words, ref in _THRESHOLDS:
+        limit = getattr(cond, fld)
+        if limit is None:
+            continue
+        v = q.get(key)
+        if v is None:
+            if key == "pellet_height_mm" and not obs.pellet_present:
+                unmet.append("no pellet")
+            else:
+                unknown.append(f"{words} unknown" + (f" (no {ref} labelled or measured)" if ref else ""))
+            continue
+        ok = v >= limit if op == ">=" else v <= limit
+        if not ok:
+            unmet.append(f"{words} {v:.3g}, needs {op} {limit:g}")
+    if cond.any_of:
+        results = [_holds(c, obs, q) for c in cond.any_of]
+        if not any(r is True for r, _ in results):
+            reasons = "; or ".join(", ".join(w) for _, w in results)
+            if any(r is None for r, _ in results):
+                unknown.append(f"none of the alternatives can be shown ({reasons})")
+            else:
+                unmet.append(f"none of the alternatives ({reasons})")
+    if unmet:
+        return False, unmet
+    if unknown:
+        return None, unknown
+    return True, []
+
+
+def _pattern_verdict(step: Step, obs: TubeObservation, q: dict, min_conf: float) -> tuple[str, str]:
+    """Verdict from the step's appearances and the confidence alone, with its reason."""
+    if obs.confidence < min_conf:
+        return "inconclusive", f"state confidence {obs.confidence:.2f} below {min_conf:.2f}"
+    pos, why_pos = _holds(step.positive.condition, obs, q)
+    neg, why_neg = _holds(step.negative.condition, obs, q)
+    if pos is True and neg is True:
+        return "inconclusive", "matches both the expected positive and the expected negative"
+    if pos is True:
+        return "positive", ""
+    if neg is True:
+        return "negative", ""
+    if pos is None or neg is None:
+        why = why_pos if pos is None else why_neg
+        return "inconclusive", "cannot be told: " + "; ".join(why)
+    return "inconclusive", ("matches neither expected appearance (positive: " + "; ".join(why_pos)
+                            + " | negative: " + "; ".join(why_neg) + ")")
+
+
+def _position(step: Step, obs: TubeObservation, q: dict, refs: _Refs) -> float | None:
+    """Where the tube lies between the blank (0) and the positive control (1), or None.
+
+    ``liquid``: d_B / (d_B + d_C) with CIEDE2000 distances of the liquid
+    colour to the blank and the control; ``turbidity``: (T - T_B) / (T_C - T_B).
+    Our own measure of "between control and blank" (no published source).
+    """
+    c, b = refs.control, refs.blank
+    if step.compare is None or c is None or b is None:
+        return None
+    if step.compare == "liquid":
+        if c.liquid_lab is None or b.liquid_lab is None or obs.liquid_lab is None:
+            return None
+        sep = float(delta_e00(np.asarray(c.liquid_lab), np.asarray(b.liquid_lab)))
+        d_b, d_c = q["liquid_de00_to_blank"], q["liquid_de00_to_control"]
+        if sep < CONTROL_SEPARATION_MIN_DE00 or d_b is None or d_c is None or d_b + d_c <= 0:
+            return None
+        return d_b / (d_b + d_c)
+    if step.compare == "turbidity":
+        if c.turbidity is None or b.turbidity is None or obs.turbidity is None:
+            return None
+        span = c.turbidity - b.turbidity
+        if span < TURBIDITY_SEPARATION_MIN:
+            return None
+        return (obs.turbidity - b.turbidity) / span
+    return None
+
+
+def _evidence(obs: TubeObservation, q: dict) -> str:
+    parts = [f"state {obs.state} (confidence {obs.confidence:.2f})"]
+    if obs.liquid_colour_name is not None:
+        parts.append(f"liquid {obs.liquid_colour_name}")
+    if obs.pellet_present:
+        h = f" {obs.pellet_height_mm:.1f} mm" if obs.pellet_height_mm is not None else ""
+        parts.append(f"pellet {obs.pellet_colour_name}{h}")
+    else:
+        parts.append("no pellet")
+    if obs.turbidity is not None:
+        t = f"turbidity {obs.turbidity:.3f}"
+        if q.get("turbidity_above_blank") is not None:
+            t += f" ({q['turbidity_above_blank']:+.3f} vs blank)"
+        if q.get("turbidity_ratio_to_standard") is not None:
+            t += f" ({q['turbidity_ratio_to_standard']:.2f}x standard)"
+        parts.append(t)
+    for key, words in (("liquid_de00_to_control", "ΔE00 to control"), ("liquid_de00_to_blank", "ΔE00 to blank"),
+                       ("pellet_de00_to_control", "pellet ΔE00 to control")):
+        if q.get(key) is not None:
+            parts.append(f"{words} {q[key]:.1f}")
+    if q.get("position_blank_to_control") is not None:
+        parts.append(f"position blank→control {q['position_blank_to_control']:.2f}")
+    return "; ".join(parts)
+
+
+def _diagnose(scheme: Scheme, step: Step, role: str, obs: TubeObservation, q: dict) -> list[str]:
+    out = []
+    for d in tuple(scheme.diagnostics) + tuple(step.diagnostics):
+        if role in d.applies_to and _holds(d.when, obs, q)[0] is True:
+            out.append(d.text)
+    return out
+
+
+def judge_step(scheme: Scheme, step: str, observations: Sequence[TubeObservation],
+               labels: dict[int, str]) -> StepJudgement:
+    """Judge every labelled tube of one photo against one step of a scheme.
+
+    Parameters
+    ----------
+    scheme : Scheme — from :func:`load_scheme`.
+    step : str — the step's name.
+    observations : sequence of TubeObservation — every tube in reading order.
+    labels : dict — 1-based position → label (:func:`parse_labels`);
+        unlabelled tubes are ignored.
+
+    Returns
+    -------
+    StepJudgement
+        One :class:`TubeOutcome` per labelled tube; ``control_failures``
+        non-empty when the positive control, blank or standard did not
+        behave (then every sample is inconclusive and the analysis exits 1).
+
+    Raises
+    ------
+    TubevisionInputError
+        Unknown step, or a label at a position with no tube.
+    """
+    st = scheme.step(step)
+    obs_list = list(observations)
+    for pos in labels:
+        if not 1 <= pos <= len(obs_list):
+            raise TubevisionInputError(f"--labels: position {pos} given but only {len(obs_list)} tubes found")
+    roles = {pos: role_of(scheme, lab) for pos, lab in labels.items()}
+    by_role: dict[str, list[int]] = {}
+    for pos in sorted(roles):
+        if roles[pos] is not None:
+            by_role.setdefault(roles[pos], []).append(pos)
+
+    def first(role: str) -> TubeObservation | None:
+        ps = by_role.get(role)
+        return obs_list[ps[0] - 1] if ps else None
+
+    refs = _Refs(control=first("control"), blank=first("blank"), standard=first("standard"))
+    warnings: list[str] = []
+    where = f"{scheme.name} step {st.name}"
+    for need in st.needs:
+        if need not in by_role:
+            warnings.append(f"{where}: no {need} labelled; thresholds against the {need} cannot be applied "
+                            f"and such tubes stay inconclusive")
+    if "control" not in by_role and "standard" not in by_role:
+        warnings.append(f"{where}: no positive control labelled: the reagent and technique are unchecked")
+    if "blank" not in by_role and "standard" not in by_role:
+        warnings.append(f"{where}: no blank labelled: a contaminated reagent would go unnoticed")
+    if "sample" not in by_role:
+        warnings.append(f"{where}: no sample labelled")
+
+    # First pass: every labelled tube by the appearances alone; controls checked.
+    failures: list[ControlFailure] = []
+    prelim: dict[int, tuple[str, str, dict, list[str]]] = {}
+    for pos in sorted(roles):
+        role = roles[pos]
+        if role is None:
+            continue
+        obs = obs_list[pos - 1]
+        q = _quantities(obs, refs)
+        pv = _position(st, obs, q, refs)
+        q["position_blank_to_control"] = pv
+        verdict, why = _pattern_verdict(st, obs, q, scheme.min_confidence)
+        diag = _diagnose(scheme, st, role, obs, q)
+        prelim[pos] = (verdict, why, q, diag)
+        label = labels[pos]
+        if role == "control" and verdict != "positive":
+            failures.append(ControlFailure(pos, label, role, "positive", verdict,
+                                           why or f"looks {verdict}"))
+        elif role == "blank" and verdict != "negative":
+            failures.append(ControlFailure(pos, label, role, "negative", verdict,
+                                           why or f"looks {verdict}"))
+        elif role == "standard" and st.standard is not None:
+            ok, why_s = _holds(st.standard.condition, obs, q)
+            if ok is not True:
+                failures.append(ControlFailure(pos, label, role, "standard appearance",
+                                               "not shown", "; ".join(why_s)))
+
+    outcomes: list[TubeOutcome] = []
+    lo, hi = scheme.between_band
+    for pos in sorted(prelim):
+        verdict, why, q, diag = prelim[pos]
+        role = roles[pos]
+        obs = obs_list[pos - 1]
+        label = labels[pos]
+        if role == "sample":
+            pv = q.get("position_blank_to_control")
+            if verdict in ("positive", "negative") and pv is not None:
+                if lo <= pv <= hi:
+                    verdict, why = "inconclusive", f"between the blank and the positive control (position {pv:.2f})"
+                elif verdict == "positive" and pv < lo:
+                    verdict, why = "inconclusive", (f"matches the expected positive but lies nearer the blank "
+                                                    f"(position {pv:.2f})")
+                elif verdict == "negative" and pv > hi:
+                    verdict, why = "inconclusive", (f"matches the expected negative but lies nearer the positive "
+                                                    f"control (position {pv:.2f})")
+            if failures and verdict != "inconclusive":
+                why = f"{verdict} by appearance, but the controls failed at this step"
+                verdict = "inconclusive"
+            elif failures:
+                why = f"{why}; and the controls failed at this step"
+        if verdict == "positive":
+            meaning = st.positive.meaning
+        elif verdict == "negative":
+            meaning = st.negative.meaning
+        else:
+            meaning = f"inconclusive: {why}"
+        if role in ("control", "blank", "standard"):
+            failed = [f for f in failures if f.position == pos]
+            role_words = {"control": "positive control", "blank": "blank", "standard": "standard"}[role]
+            if failed:
+                meaning = f"{role_words} FAILED: expected {failed[0].expected}, {failed[0].reason}"
+            else:
+                meaning = f"{role_words} as expected: {meaning}"
+        for d in diag:
+            warnings.append(f"{where}: T{pos} ({label}): {d}")
+        outcomes.append(TubeOutcome(index=pos - 1, position=pos,
+                                    label=label, role=role, verdict=verdict, meaning=meaning,
+                                    evidence=_evidence(obs, q), confidence=obs.confidence,
+                                    quantities=q, warnings=tuple(diag)))
+    for f in failures:
+        warnings.append(f"{where}: {f}")
+    summary = scheme_summary(scheme)
+    return StepJudgement(scheme_name=scheme.name, scheme_source=summary["source"], scheme_file=summary["file"],
+                         scheme_sha256=scheme.sha256, step=st.name, outcomes=tuple(outcomes),
+                         control_failures=tuple(failures), warnings=tuple(dict.fromkeys(warnings)))
+
+
+def judgement_counts(judgement: StepJudgement) -> dict[str, int]:
+    """How many samples got each verdict (for summaries)."""
+    out = {v: 0 for v in VERDICTS}
+    for o in judgement.outcomes:
+        if o.role == "sample":
+            out[o.verdict] += 1
+    return out
+
