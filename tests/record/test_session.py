@@ -142,3 +142,25 @@ def test_sample_without_tubes_says_so():
 def test_bad_input_is_refused_with_a_message(records, conclusion, match):
     with pytest.raises(TubevisionInputError, match=match):
         render_session_report(records, conclusion)
+
+
+def test_photo_list_gives_each_records_json_hash():
+    from tubevision.record.build import to_json
+
+    recs = _records()
+    text = read_text(render_session_report(recs, CONCLUSION)).text
+    for r in recs:
+        assert hashlib.sha256(to_json(r).encode("utf-8")).hexdigest() in text
+
+
+def test_writer_refuses_an_existing_file(tmp_path):
+    from tubevision.record.session import write_session_report
+
+    target = tmp_path / "session.html"
+    write_session_report(target, _records(), CONCLUSION)
+    first = target.read_text()
+    with pytest.raises(TubevisionInputError, match="already exists"):
+        write_session_report(target, _records(), {"samples": {}})
+    assert target.read_text() == first
+    write_session_report(target, _records(), {"samples": {}}, overwrite=True)
+    assert target.read_text() != first

@@ -11,12 +11,17 @@ self-contained HTML with every text escaped.
 
 from __future__ import annotations
 
+import os
+from pathlib import Path
 from typing import Any
 
 from ..errors import TubevisionInputError
-from ._html import code, command_text, esc, fmt_num, get, page, safety_section, swatch, verdict_badge, warnings_list
+from ._html import (code, command_text, esc, fmt_num, get, page, safety_section, swatch, verdict_badge,
+                    warnings_list)
+from .report import record_text_sha256
+from .write import atomic_write_text
 
-__all__ = ["render_session_report", "evidence_chain"]
+__all__ = ["render_session_report", "evidence_chain", "write_session_report"]
 
 NO_CALLS = '<tr><td colspan="2" class="missing">no calls</td></tr>'
 """What a sample without calls shows."""
@@ -152,10 +157,12 @@ def _photos(records: list[dict]) -> str:
             f"<td>{esc(get(rec, 'image', 'captured_at'))}</td><td>{esc(device)}</td>"
             f"<td>{esc(get(rec, 'provenance', 'ran_at'))}</td><td>{esc(cal_text)}</td>"
             f'<td class="num">{len(rec.get("tubes") or [])}</td>'
+            f"<td>{code(record_text_sha256(rec))}</td>"
             f"<td>{code(command_text(get(rec, 'provenance', 'command')))}</td></tr>")
     return ('<section id="photos"><h2>Photos and provenance</h2><div class="scroll"><table id="photo-list">'
             "<thead><tr><th>#</th><th>Step</th><th>Photo (SHA-256)</th><th>Captured</th><th>Camera</th>"
-            "<th>Analysed</th><th>Calibration</th><th>Tubes</th><th>Command line</th></tr></thead>"
+            "<th>Analysed</th><th>Calibration</th><th>Tubes</th><th>record.json SHA-256</th>"
+            "<th>Command line</th></tr></thead>"
             f"<tbody>{''.join(rows)}</tbody></table></div></section>")
 
 
@@ -205,3 +212,16 @@ def render_session_report(records: list[dict], conclusion: dict) -> str:
     body.append(f"<footer>Made by {esc(sw.get('name') or 'tubevision')} {esc(sw.get('version') or '')} "
                 "from the evidence records listed above.</footer>")
     return page(title, "\n".join(body), meta={"generator": "tubevision"})
+
+
+def write_session_report(path: str | os.PathLike, records: list[dict], conclusion: dict, *,
+                         overwrite: bool = False) -> Path:
+    """Render :func:`render_session_report` and write it atomically to ``path``.
+
+    Raises
+    ------
+    TubevisionInputError
+        ``path`` exists and ``overwrite`` is False, its folder is missing, or the
+        records or conclusion are malformed.
+    """
+    return atomic_write_text(path, render_session_report(records, conclusion), overwrite=overwrite)
