@@ -73,7 +73,7 @@ def _with_sd(row: dict[str, str], key: str, sd_key: str | None) -> str:
         return '<span class="missing">—</span>'
     out = _keyed(key, row[key])
     if sd_key and row[sd_key] != "":
-        out += f' <span class="small">± {_keyed(sd_key, row[sd_key])}</span>'
+        out += f'<br><span class="small">± {_keyed(sd_key, row[sd_key])}</span>'
     return out
 
 
