@@ -67,7 +67,7 @@ def test_tampered_photo_in_archive_is_caught(archive, bench):
 
     bad = _rewrite_zip(archive, bench / "bad.zip", change={"photos/bench-k7.jpg": flip})
     res = verify(bad)
-    assert not res.ok
+    assert not res.ok and res.exit_status == 1
     assert res.changed == ("photos/bench-k7.jpg",)
     assert not res.missing and not res.extra
     assert any("image.sha256 in out/bench-k7/record.json" in p for p in res.problems)
@@ -131,7 +131,8 @@ def test_output_folder_without_manifest_cross_checks_report_record_and_photo(tmp
     (tmp_path / "bench-k7.jpg").write_bytes(PHOTO_BYTES)  # the photo beside the output folder
     out = write_output_folder(tmp_path / "bench-k7", manifest=False)
     res = verify(out)
-    assert res.ok and str(tmp_path / "bench-k7.jpg") in res.checked
+    assert res.ok and res.exit_status == 0
+    assert set(res.checked) == {str(tmp_path / "bench-k7.jpg"), "record.json", "annotated.png"}
     assert any("no manifest.sha256" in n for n in res.notes)
     (out / "annotated.png").write_bytes(small_png(seed=3))
     assert verify(out).changed == ("annotated.png",)

@@ -90,6 +90,11 @@ class VerifyResult:
     def __bool__(self) -> bool:
         return self.ok
 
+    @property
+    def exit_status(self) -> int:
+        """What ``tubevision verify`` exits with: 0 all matched, 1 a mismatch was found."""
+        return 0 if self.ok else 1
+
     def lines(self) -> list[str]:
         """A short account for a person: a status line, then findings and notes."""
         head = (f"{self.path}: {self.kind}, {len(self.checked)} file(s) match"
@@ -283,6 +288,10 @@ def _check_record_folder(store: _Store, rec_name: str, f: _Findings, *, outside:
         if claimed and dig is not None:
             if claimed.lower() != dig[0]:
                 f.bad("changed", rec_name, f"differs from the record {report} was made from")
+            else:
+                f.ok(rec_name)
+        elif not claimed:
+            f.notes.append(f"{report}: states no record hash; {rec_name} not checked against it")
         annotated = folder + "annotated.png"
         claimed_png = reader.meta.get(META_ANNOTATED_SHA256)
         if claimed_png:
@@ -293,6 +302,8 @@ def _check_record_folder(store: _Store, rec_name: str, f: _Findings, *, outside:
                 got = store.digest(annotated)
                 if got is None or got[0] != claimed_png.lower():
                     f.bad("changed", annotated, f"differs from the image embedded in {report}")
+                else:
+                    f.ok(annotated)
 
 
 def _check_crate(store: _Store, f: _Findings) -> None:
@@ -362,13 +373,9 @@ def _check_output_folder(store: _Store, f: _Findings, *, outside: Path | None) -
             if name != MANIFEST_NAME and name not in listed:
                 f.bad("extra", name, f"not listed in {MANIFEST_NAME}")
     else:
-        f.notes.append(f"no {MANIFEST_NAME}: files are checked against each other only, and extra files "
-                       "cannot be told apart")
+        f.notes.append(f"no {MANIFEST_NAME}: record, annotated image and photo are checked against "
+                       "the report and the record only; the report itself and extra files cannot be checked")
     _check_record_folder(store, "record.json", f, outside=outside)
-    if not store.has(MANIFEST_NAME):
-        for name in ("record.json", "annotated.png", "report.html"):
-            if store.has(name) and name not in f.changed:
-                f.ok(name)
 
 
 def _prefixed(res: VerifyResult, prefix: str) -> dict[str, list[str]]:
