@@ -125,6 +125,17 @@ def test_existing_archive_is_not_overwritten_unless_asked(bench):
     assert len(zipfile.ZipFile(zp).namelist()) == 3
 
 
+def test_archive_inside_an_archived_folder_leaves_itself_out(bench):
+    zp = bench / "out" / "evidence.zip"
+    write_crate(zp, *archive_inputs([bench / "out"], exclude=zp)[:1])
+    files, base = archive_inputs([bench / "out"], exclude=zp)
+    assert zp.resolve() not in files
+    write_crate(zp, files, base=base, overwrite=True)
+    assert "out/evidence.zip" not in zipfile.ZipFile(zp).namelist()
+    with pytest.raises(TubevisionInputError, match="cannot contain itself"):
+        write_crate(zp, archive_inputs([bench / "out"])[0], overwrite=True)
+
+
 def test_default_base_is_the_common_folder(bench):
     zp = write_crate(bench / "one.zip", [bench / "out" / "bench-k7" / "record.json",
                                          bench / "photos" / "bench-k7.jpg"])

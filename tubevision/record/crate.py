@@ -222,13 +222,15 @@ def _check_arcname(arc: str, path: Path) -> None:
                                    "archive the folder above it or rename it")
 
 
-def archive_inputs(paths: list[str | os.PathLike]) -> tuple[list[Path], Path]:
+def archive_inputs(paths: list[str | os.PathLike], *,
+                   exclude: str | os.PathLike | None = None) -> tuple[list[Path], Path]:
     """Expand files and folders given on a command line into files and their common base.
 
     Folders contribute all their files, recursively, except hidden ones (names
     starting with ``.``, such as half-written temporaries). Each folder keeps
     its own name inside the archive: the base is the common parent of the
-    given paths.
+    given paths. ``exclude`` (the archive being written, when it lies inside
+    one of the folders) is left out.
 
     Raises
     ------
@@ -239,6 +241,7 @@ def archive_inputs(paths: list[str | os.PathLike]) -> tuple[list[Path], Path]:
         raise TubevisionInputError("archive: give at least one file or folder to archive")
     files: list[Path] = []
     parents: list[str] = []
+    skip = Path(exclude).resolve() if exclude is not None else None
     for raw in paths:
         p = Path(raw)
         if not p.exists():
@@ -248,7 +251,7 @@ def archive_inputs(paths: list[str | os.PathLike]) -> tuple[list[Path], Path]:
         if p.is_dir():
             for q in sorted(p.rglob("*")):
                 rel = q.relative_to(p)
-                if q.is_file() and not any(part.startswith(".") for part in rel.parts):
+                if q.is_file() and not any(part.startswith(".") for part in rel.parts) and q != skip:
                     files.append(q)
         elif p.is_file():
             files.append(p)
