@@ -167,7 +167,8 @@ def _actions(files: list[CrateFile], by_arc: dict[str, dict]) -> list[dict[str, 
         if photo is not None:
             act["object"] = [{"@id": _id_of(photo.arcname)}]
             by_arc[f.arcname]["about"] = {"@id": _id_of(photo.arcname)}
-        ran_at = (rec.get("provenance") or {}).get("ran_at") if isinstance(rec.get("provenance"), dict) else None
+        prov = rec.get("provenance") if isinstance(rec.get("provenance"), dict) else {}
+        ran_at = prov.get("ran_at")
         if ran_at:
             act["endTime"] = str(ran_at)
         actions.append(act)
@@ -306,7 +307,8 @@ def write_crate(zip_path: str | os.PathLike, files: list[str | os.PathLike], *,
         paths.append(p.resolve())
     if zp.resolve() in paths:
         raise TubevisionInputError(f"{zp}: the archive cannot contain itself")
-    root = Path(base).resolve() if base is not None else Path(os.path.commonpath([str(p.parent) for p in paths]))
+    root = (Path(base).resolve() if base is not None
+            else Path(os.path.commonpath([str(p.parent) for p in paths])))
     entries: list[CrateFile] = []
     seen: set[str] = set()
     for p in paths:

@@ -62,6 +62,10 @@ def record_text_sha256(record: dict) -> str | None:
         return None
 
 
+_DASH = '<span class="missing">—</span>'
+"""What a cell without a value shows."""
+
+
 def _keyed(key: str, text: str, *, value: str | None = None) -> str:
     """A value in a span the table reader finds by ``data-key``."""
     dv = "" if value is None else f' data-value="{esc(value)}"'
@@ -70,7 +74,7 @@ def _keyed(key: str, text: str, *, value: str | None = None) -> str:
 
 def _with_sd(row: dict[str, str], key: str, sd_key: str | None) -> str:
     if row[key] == "":
-        return '<span class="missing">—</span>'
+        return _DASH
     out = _keyed(key, row[key])
     if sd_key and row[sd_key] != "":
         out += f'<br><span class="small">± {_keyed(sd_key, row[sd_key])}</span>'
@@ -90,7 +94,7 @@ def _tube_table(record: dict) -> str:
         r = tube_row(tube, image)
         liquid_name = r["colour_name"]
         liquid = (swatch(get(tube, "liquid", "lab"), f"liquid of {r['id']}") + " "
-                  + (_keyed("colour_name", liquid_name) if liquid_name else '<span class="missing">—</span>'))
+                  + (_keyed("colour_name", liquid_name) if liquid_name else _DASH))
         present = get(tube, "pellet", "present")
         pellet = _keyed("pellet_present", "yes" if present else ("no" if present is not None else "—"),
                         value=r["pellet_present"])
@@ -101,7 +105,7 @@ def _tube_table(record: dict) -> str:
                              + (_keyed("pellet_colour_name", pname) if pname else ""))
         verdict = get(tube, "step_outcome", "verdict")
         verdict_cell = (f'<span data-key="verdict" data-value="{esc(r["verdict"])}">'
-                        f"{verdict_badge(verdict)}</span>") if verdict else '<span class="missing">—</span>'
+                        f"{verdict_badge(verdict)}</span>") if verdict else _DASH
         meaning = get(tube, "step_outcome", "meaning")
         evidence = get(tube, "step_outcome", "evidence")
         why = ""
@@ -110,6 +114,7 @@ def _tube_table(record: dict) -> str:
         if evidence:
             why += f'<div class="small">{esc(evidence)}</div>'
         label = tube.get("label")
+        height = _with_sd(r, "pellet_height_mm", "pellet_height_mm_sd")
         cells = [
             f'<th scope="row">{_keyed("id", r["id"])}</th>',
             f"<td>{_keyed('label', str(label)) if label is not None else ''}</td>",
@@ -122,7 +127,7 @@ def _tube_table(record: dict) -> str:
             f'<td class="num">{_with_sd(r, "b", "b_sd")}</td>',
             f'<td class="num">{_with_sd(r, "turbidity", "turbidity_sd")}</td>',
             f"<td>{pellet}</td>",
-            f'<td class="num">{_with_sd(r, "pellet_height_mm", "pellet_height_mm_sd") if present else ""}</td>',
+            f'<td class="num">{height if present else ""}</td>',
             f"<td>{pellet_colour}</td>",
             f'<td class="why">{verdict_cell}{why}</td>',
         ]
@@ -242,7 +247,8 @@ def _calibration(record: dict) -> str:
                    '<figcaption>CIEDE2000 difference (CIE 015:2018; Sharma, Wu and Dalal 2005) between '
                    "each patch's reference value and its colour after correction. Filled bars: patches "
                    "used in the fit; dashed outlines: patches left out"
-                   + (f"; dashed line: mean {mean:g}" if mean is not None else "") + ".</figcaption></figure>")
+                   + (f"; dashed line: mean {mean:g}" if mean is not None else "")
+                   + ".</figcaption></figure>")
         trs = "".join(
             f'<tr><td>{esc(p.get("id"))}</td><td class="num">{esc(fmt_num(p.get("residual_de00")))}</td>'
             f'<td>{"yes" if p.get("used", True) else "no"}</td></tr>' for p in pats)
@@ -353,7 +359,8 @@ def render_report(record: dict, annotated_png: bytes | None) -> str:
     if not isinstance(record, dict) or not isinstance(record.get("tubes"), list):
         raise TubevisionInputError("record: expected an evidence record with a 'tubes' list")
     if annotated_png is not None:
-        if not isinstance(annotated_png, (bytes, bytearray)) or not bytes(annotated_png).startswith(PNG_SIGNATURE):
+        if (not isinstance(annotated_png, (bytes, bytearray))
+                or not bytes(annotated_png).startswith(PNG_SIGNATURE)):
             raise TubevisionInputError("annotated image: expected PNG bytes")
         annotated_png = bytes(annotated_png)
     img = record.get("image") if isinstance(record.get("image"), dict) else {}
@@ -364,7 +371,8 @@ def render_report(record: dict, annotated_png: bytes | None) -> str:
     title = f"Tube evidence — {photo}"
     sub = []
     if scheme and scheme.get("name"):
-        sub.append(f"scheme {scheme.get('name')}" + (f", step {scheme.get('step')}" if scheme.get("step") else ""))
+        step = f", step {scheme.get('step')}" if scheme.get("step") else ""
+        sub.append(f"scheme {scheme.get('name')}{step}")
     ran = get(record, "provenance", "ran_at")
     if ran:
         sub.append(f"analysed {ran}")

@@ -37,7 +37,8 @@ def _check(records: Any, conclusion: Any) -> None:
         raise TubevisionInputError("session report: give at least one evidence record")
     for i, rec in enumerate(records, 1):
         if not isinstance(rec, dict) or not isinstance(rec.get("tubes"), list):
-            raise TubevisionInputError(f"session report: record {i} is not an evidence record with a 'tubes' list")
+            raise TubevisionInputError(
+                f"session report: record {i} is not an evidence record with a 'tubes' list")
     if not isinstance(conclusion, dict) or not isinstance(conclusion.get("samples", {}), dict):
         raise TubevisionInputError("session report: the conclusion must be an object with a 'samples' object")
 
@@ -102,7 +103,8 @@ def _chain_table(chain: list[dict[str, Any]], label: str) -> str:
 def _samples(records: list[dict], conclusion: dict) -> str:
     samples = conclusion.get("samples") or {}
     if not samples:
-        return '<section id="samples"><h2>Samples</h2><p class="missing">The conclusion names no samples.</p></section>'
+        return ('<section id="samples"><h2>Samples</h2>'
+                '<p class="missing">The conclusion names no samples.</p></section>')
     out = ['<section id="samples"><h2>Samples</h2>']
     for label, sample in samples.items():
         sample = sample if isinstance(sample, dict) else {}

@@ -295,7 +295,8 @@ def _check_record_folder(store: _Store, rec_name: str, f: _Findings, *, outside:
         annotated = folder + "annotated.png"
         claimed_png = reader.meta.get(META_ANNOTATED_SHA256)
         if claimed_png:
-            embedded = [hashlib.sha256(base64.b64decode(s, validate=False)).hexdigest() for s in reader.images]
+            embedded = [hashlib.sha256(base64.b64decode(s, validate=False)).hexdigest()
+                        for s in reader.images]
             if embedded and claimed_png.lower() not in embedded:
                 f.bad("changed", report, "its embedded image differs from the hash it states")
             if store.has(annotated):
@@ -359,7 +360,8 @@ def _check_output_folder(store: _Store, f: _Findings, *, outside: Path | None) -
         text = (store.read(MANIFEST_NAME) or b"").decode("utf-8", "replace")
         listed, bad_lines = parse_manifest(text)
         if bad_lines:
-            f.bad("changed", MANIFEST_NAME, f"line(s) {', '.join(map(str, bad_lines))} are not sha256sum lines")
+            f.bad("changed", MANIFEST_NAME,
+                  f"line(s) {', '.join(map(str, bad_lines))} are not sha256sum lines")
         for name, want in listed.items():
             if not store.has(name):
                 f.bad("missing", name, f"listed in {MANIFEST_NAME} but absent")
@@ -420,7 +422,8 @@ def verify(path: str | os.PathLike) -> VerifyResult:
             with zipfile.ZipFile(p) as zf:
                 store = _Store(p, zf)
                 if not store.has(CRATE_METADATA_NAME):
-                    raise TubevisionInputError(f"{p}: holds no {CRATE_METADATA_NAME}; not an RO-Crate archive")
+                    raise TubevisionInputError(
+                        f"{p}: holds no {CRATE_METADATA_NAME}; not an RO-Crate archive")
                 _check_crate(store, f)
         except zipfile.BadZipFile as exc:
             raise TubevisionInputError(f"{p}: damaged zip archive ({exc})") from None
