@@ -191,3 +191,24 @@ def test_bad_input_is_refused_with_a_message():
         render_report({"tubes": None}, small_png())
     with pytest.raises(TubevisionInputError, match="annotated image: expected PNG bytes"):
         render_report(make_record(), b"\xff\xd8 not a png")
+
+
+def test_any_printable_label_round_trips_through_report_and_csv():
+    """Property test (hypothesis, derandomized so the examples are fixed): the label the
+    report shows and the CSV holds is the record's label, whatever characters it uses."""
+    from hypothesis import given, settings
+    from hypothesis import strategies as st
+
+    labels = st.text(alphabet=st.characters(blacklist_categories=("Cs", "Cc")), min_size=1, max_size=40)
+
+    @settings(derandomize=True, max_examples=60, deadline=None)
+    @given(labels)
+    def check(label):
+        rec = make_record()
+        rec["tubes"][0]["label"] = label
+        shown = read_tube_table(render_report(rec, None)).rows[0]["label"]
+        assert shown == label
+        cell = next(csv.DictReader(io.StringIO(tubes_csv(rec), newline="")))["label"]
+        assert cell == (("'" + label) if label[0] in "=+-@" else label)
+
+    check()
