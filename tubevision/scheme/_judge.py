@@ -532,6 +532,8 @@ def judge_step(scheme: Scheme, step: str, observations: Sequence[TubeObservation
             role_words = {"control": "positive control", "blank": "blank", "standard": "standard"}[role]
             if failed:
                 meaning = f"{role_words} FAILED: expected {failed[0].expected}, {failed[0].reason}"
+            elif role == "standard" and st.standard is not None:
+                meaning = f"{role_words} as expected: {st.standard.meaning}"
             else:
                 meaning = f"{role_words} as expected: {meaning}"
         for d in diag:
