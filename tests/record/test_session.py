@@ -164,3 +164,10 @@ def test_writer_refuses_an_existing_file(tmp_path):
     assert target.read_text() == first
     write_session_report(target, _records(), {"samples": {}}, overwrite=True)
     assert target.read_text() != first
+
+
+def test_overview_matrix_gives_every_call():
+    page = render_session_report(_records(), CONCLUSION)
+    table = page.split('<table id="calls">', 1)[1].split("</table>", 1)[0]
+    text = read_text(table).text
+    assert text == "Sample Ag+ Pb2+ Hg2^2+ K-7 present absent inconclusive"

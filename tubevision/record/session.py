@@ -124,6 +124,31 @@ def _samples(records: list[dict], conclusion: dict) -> str:
     return "".join(out)
 
 
+def _calls_of(sample: Any) -> dict[str, Any]:
+    """A sample's calls as ion → call, tolerant of a malformed entry."""
+    calls = sample.get("calls") if isinstance(sample, dict) else None
+    return {str(k): v for k, v in calls.items()} if isinstance(calls, dict) else {}
+
+
+def _overview(conclusion: dict) -> str:
+    """Samples × ions matrix of calls, for reading the session at a glance."""
+    samples = conclusion.get("samples") or {}
+    ions: list[str] = []
+    for sample in samples.values():
+        ions += [i for i in _calls_of(sample) if i not in ions]
+    if not samples or not ions:
+        return ""
+    head = "<tr><th>Sample</th>" + "".join(f"<th>{esc(i)}</th>" for i in ions) + "</tr>"
+    rows = []
+    for label, sample in samples.items():
+        calls = _calls_of(sample)
+        cells = "".join(f'<td><span class="{_CALL_CLASSES.get(str(calls.get(i)), "")}">'
+                        f'{esc(calls.get(i, ""))}</span></td>' for i in ions)
+        rows.append(f'<tr><th scope="row">{esc(label)}</th>{cells}</tr>')
+    return ('<section id="overview"><h2>Calls at a glance</h2><div class="scroll"><table id="calls">'
+            f"<thead>{head}</thead><tbody>{''.join(rows)}</tbody></table></div></section>")
+
+
 def _controls(records: list[dict], conclusion: dict) -> str:
     controls = conclusion.get("controls") if isinstance(conclusion.get("controls"), dict) else {}
     if not controls:
@@ -206,7 +231,7 @@ def render_session_report(records: list[dict], conclusion: dict) -> str:
             + (f"; steps: {esc(', '.join(steps))}" if steps else "") + "</p></header>",
             '<p class="small">Calls are the tool\'s reading of the photos against the scheme; '
             "a person confirms them before they enter a notebook.</p>",
-            _samples(records, conclusion), _controls(records, conclusion),
+            _overview(conclusion), _samples(records, conclusion), _controls(records, conclusion),
             f'<section id="warnings"><h2>Warnings</h2>{warnings_list(_session_warnings(records, conclusion))}'
             "</section>",
             safety_section(), _photos(records)]
