@@ -64,7 +64,9 @@ On a plain light backdrop there is no dark reference behind the tube, so the
 stage falls back on the veil alone: with the same model, ``q = I/B`` (column
 over backdrop beside, per channel) is T + S/B; taking the least-absorbed
 channel (``q_max``, where a coloured solution is nearly transparent)
-τ_plain = max(0, ln(q_max / Q_CLEAR_PLAIN)). This assumes the suspended solid
+τ_plain = max(0, ln(max_c(q_c / q_air,c))), where q_air is the same ratio over the
+empty glass above the liquid (the walls alone; :data:`Q_CLEAR_PLAIN` when none is
+visible). This assumes the suspended solid
 is lighter than the backdrop and reads dark suspended solid as clear; the
 tube carries a warning saying so, and the banded backdrop is recommended.
 
@@ -161,10 +163,18 @@ BOOTSTRAP_N = 200
 BOOTSTRAP_SEED = 20260
 """Seed for the turbidity bootstrap, so results are reproducible."""
 
+TURBIDITY_SD_FLOOR = 0.002
+"""Smallest turbidity sd reported: one 8-bit code step at the light level changes τ by
+~0.01, and its uniform quantisation sd (1/sqrt(12)) over ≥ 10 rows is ~0.002."""
+
+AIR_MIN_ROWS = 3
+"""Rows of empty glass above the liquid needed to use them as the clear reference."""
+
 Q_CLEAR_PLAIN = 1.0
 """Expected column/backdrop ratio of the least-absorbed channel for clear liquid on a
-plain backdrop (the cylinder of liquid relays the backdrop behind it; glass losses of a
-few percent are neglected)."""
+plain backdrop when no empty glass above the liquid is visible to measure it (the
+cylinder of liquid relays the backdrop behind it; glass losses of a few percent are
+neglected)."""
 
 PELLET_MIN_CONTRAST_DE00 = 10.0
 """A settled solid must differ from the liquid above by at least this CIEDE2000 (a
@@ -515,8 +525,9 @@ def measure_tube(pixels: np.ndarray, region, *, correction=None, mm_per_px: floa
         rgb = inner_rgb[good]
         n_eff = int(good.any(axis=1).sum())
         col_lab, lab_sd, lab_sem = _lab_stats(correction, rgb, n_eff)
+        air = _air_ratio(win, inner_rgb, inner_clip, light_rows & ~occluded, beside_rgb, top - menisc)
         tau = _turbidity(inner_y, inner_rgb, good, use_light, use_dark, beside_y, beside_rgb, banded,
-                         highlight)
+                         highlight, air)
         de_sem = float(np.linalg.norm(lab_sem))
         t_std, t_unit = None, None
         if turbidity_curve is not None:
@@ -613,7 +624,22 @@ def _bootstrap(fn, groups: list[np.ndarray]) -> float:
     return float(np.std(vals, ddof=1)) if len(vals) > 2 else float("nan")
 
 
-def _turbidity(inner_y, inner_rgb, good, use_light, use_dark, beside_y, beside_rgb, banded, highlight):
+def _air_ratio(win, inner_rgb, inner_clip, light_rows, beside_rgb, stop: int):
+    """Per-channel ratio tube/backdrop above the liquid (glass walls only), or None."""
+    rows = np.zeros(inner_rgb.shape[0], bool)
+    rows[2:max(2, stop)] = True
+    rows &= light_rows
+    if rows.sum() < AIR_MIN_ROWS:
+        return None
+    px = inner_rgb[rows][~inner_clip[rows]]
+    if px.shape[0] < AIR_MIN_ROWS:
+        return None
+    q = np.median(px, axis=0) / np.maximum(np.median(beside_rgb[rows], axis=0), 1e-6)
+    return q if np.all(np.isfinite(q)) and np.all(q > 0.2) else None
+
+
+def _turbidity(inner_y, inner_rgb, good, use_light, use_dark, beside_y, beside_rgb, banded, highlight,
+               air=None):
     """τ and its sd (module docstring)."""
     ok = ~highlight
     row_y = np.array([np.median(inner_y[r][ok[r]]) if ok[r].any() else np.nan
@@ -630,7 +656,7 @@ def _turbidity(inner_y, inner_rgb, good, use_light, use_dark, beside_y, beside_r
             return -math.log(max(ct, 1e-4) / cb)
 
         raw = tau_of(tl, td, bl, bd)
-        sd = _bootstrap(tau_of, [tl, td, bl, bd])
+        sd = max(TURBIDITY_SD_FLOOR, _bootstrap(tau_of, [tl, td, bl, bd]))
         ratio = math.exp(-raw)
         return dict(value=max(0.0, raw), raw=raw, sd=sd, ratio=ratio, method="band-contrast")
     rows = use_light & fin
@@ -639,13 +665,15 @@ def _turbidity(inner_y, inner_rgb, good, use_light, use_dark, beside_y, beside_r
     row_rgb = np.array([np.median(inner_rgb[r][ok[r]], axis=0) for r in np.flatnonzero(rows)])
     b_rgb = beside_rgb[rows]
 
+    q_clear = np.asarray(air) if air is not None else np.full(3, Q_CLEAR_PLAIN)
+
     def tau_plain(c, b):
-        q = np.median(c, axis=0) / np.maximum(np.median(b, axis=0), 1e-6)
-        return math.log(max(float(q.max()), 1e-6) / Q_CLEAR_PLAIN)
+        q = np.median(c, axis=0) / np.maximum(np.median(b, axis=0), 1e-6) / q_clear
+        return math.log(max(float(q.max()), 1e-6))
 
     idx = np.arange(row_rgb.shape[0])
     raw = tau_plain(row_rgb, b_rgb)
-    sd = _bootstrap(lambda i: tau_plain(row_rgb[i], b_rgb[i]), [idx])
+    sd = max(TURBIDITY_SD_FLOOR, _bootstrap(lambda i: tau_plain(row_rgb[i], b_rgb[i]), [idx]))
     return dict(value=max(0.0, raw), raw=raw, sd=sd, ratio=1.0, method="plain-veil")
 
 
@@ -685,37 +713,48 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     info["bottom_de"] = float(np.median(de[bsel])) if bsel.any() else 0.0
     # one run from the bottom upward
     skip = max(1, int(round(PELLET_BOTTOM_SKIP_FRACTION * width)))
-    is_solid = de >= PELLET_MIN_CONTRAST_DE00
+    classified = (light_rows[rows] | dark_rows[rows]) if banded else np.ones(rows.size, bool)
+    is_solid = (de >= PELLET_MIN_CONTRAST_DE00) & classified
+    unknown = ~classified
+    if banded and is_solid[rows >= bt].any():
+        # rows of a band class in which this solid looks like the liquid (a white solid
+        # over the light bands) can neither confirm nor end the solid
+        c_s = np.median(lab_rows[is_solid & (rows >= bt)], axis=0)
+        for cls, ref_c in ((light_rows[rows], ref_light), (dark_rows[rows], ref_dark)):
+            if float(delta_e00(c_s, ref_c)) < PELLET_MIN_CONTRAST_DE00:
+                unknown |= cls & ~is_solid
+    allowed = is_solid | unknown
     k = len(rows) - 1
-    start = None
-    for j in range(k, max(-1, k - skip - 1), -1):
-        if is_solid[j]:
-            start = j
-            break
-    if start is None:
-        return none, info
-    j = start
-    # allow gaps of one row (noise)
-    while j - 1 >= 0 and (is_solid[j - 1] or (j - 2 >= 0 and is_solid[j - 2])):
+    j = k
+    while j >= 0 and (allowed[j] or k - j < skip or (j - 1 >= 0 and allowed[j - 1] and is_solid[j - 1])):
         j -= 1
-    top_j = j
+    walked = np.arange(j + 1, k + 1)
+    solid_idx = walked[is_solid[walked]]
+    if solid_idx.size == 0:
+        return none, info
+    top_j = int(solid_idx.min())
+    start = int(solid_idx.max())
     run = slice(top_j, start + 1)
     # sub-row edge: where de crosses half-way between solid and the liquid above
-    solid_level = float(np.median(de[run]))
+    solid_level = float(np.median(de[run][is_solid[run]]))
     above = de[max(0, top_j - max(3, skip * 2)):top_j]
     liquid_level = float(np.median(above)) if above.size else 0.0
     half_level = 0.5 * (solid_level + liquid_level)
     edge_row = float(rows[top_j]) - 0.5
-    if top_j >= 1 and de[top_j] != de[top_j - 1]:
+    unknown_above = top_j - (j + 1)          # undecidable rows between the solid and the stop
+    if unknown_above > 0:
+        # the top lies somewhere in those rows: take their middle, sd = span / sqrt(12)
+        edge_row -= unknown_above / 2.0
+    elif top_j >= 1 and de[top_j] != de[top_j - 1]:
         # linear interpolation between the last liquid row and the first solid row
         f = (half_level - de[top_j - 1]) / (de[top_j] - de[top_j - 1])
         edge_row = float(rows[top_j - 1]) + float(np.clip(f, 0.0, 1.0))
     height_px = (region.inner_bottom - y0) + 0.5 - edge_row
-    contrast = float(np.median(delta_e00(lab_rows[run], ref[run])))
+    contrast = float(np.median(de[run][is_solid[run]]))
     follow = 0.0
     if banded:
-        yy = row_rgb[run] @ _Y_WEIGHTS
-        bb = beside_y[rows[run]]
+        yy = row_rgb[run][is_solid[run]] @ _Y_WEIGHTS
+        bb = beside_y[rows[run][is_solid[run]]]
         if yy.size >= 4 and yy.std() > 0 and bb.std() > 0:
             follow = float(np.corrcoef(yy, bb)[0, 1])
     info.update(contrast=contrast, band_follow=follow, height_px=height_px)
@@ -724,14 +763,15 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     if height_px < min_px or contrast < PELLET_MIN_CONTRAST_DE00 or follow > PELLET_MAX_BAND_FOLLOW:
         return none, info
     # colour of the solid: the axis strip over the run, highlights out
-    px = win.lin[rows[run][0]:rows[run][-1] + 1, a0:a1].reshape(-1, 3)
-    cl = win.clip[rows[run][0]:rows[run][-1] + 1, a0:a1].reshape(-1)
+    srows = rows[run][is_solid[run]]
+    px = win.lin[srows, a0:a1].reshape(-1, 3)
+    cl = win.clip[srows, a0:a1].reshape(-1)
     if (~cl).sum() >= 3:
         px = px[~cl]
-    lab, sd, _ = _lab_stats(correction, px, run.stop - run.start)
+    lab, sd, _ = _lab_stats(correction, px, int(srows.size))
     info["lab"] = lab
     # edge sd: quantisation (1/sqrt(12) px) ⊕ edge spread ⊕ inner-bottom position
-    edge_sd = 1.0 / math.sqrt(12.0)
+    edge_sd = max(1.0, float(unknown_above)) / math.sqrt(12.0)
     sd_px = math.sqrt(edge_sd ** 2 + INNER_BOTTOM_SD_PX ** 2)
     height_mm = None if mm_per_px is None else float(height_px * mm_per_px)
     height_sd = None if mm_per_px is None else float(sd_px * mm_per_px)
