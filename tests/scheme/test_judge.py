@@ -1,0 +1,249 @@
+"""judge_step(): verdicts per tube beside the positive control and the blank.
+
+Kind 2 (synthetic cases with a known answer): hand-built observations whose
+expected verdicts follow the chemistry written in the scheme files (standard
+chemistry, common practice). ΔE00 evidence is checked against colour-science
+as an independent oracle.
+"""
+
+from __future__ import annotations
+
+from types import SimpleNamespace
+
+import numpy as np
+import pytest
+
+from tubevision.errors import TubevisionInputError
+from tubevision.scheme import (TubeObservation, judge_step, load_scheme, observation_from,
+                               observation_from_record, parse_labels)
+
+from ._group1 import BLACK, CHROMATE_YELLOW, COLOURLESS, WHITE, YELLOW, clear, cloudy, record_for, settled
+
+G1 = load_scheme("group1")
+LABELS3 = parse_labels("1=control,2=unknown A,3=blank", 3)
+
+
+def _verdicts(j):
+    return {o.label: o.verdict for o in j.outcomes}
+
+
+def test_chloride_step_positive_sample_with_good_controls():
+    obs = [settled(0, *WHITE), settled(1, *WHITE, height_mm=0.9), clear(2)]
+    j = judge_step(G1, "chloride-precipitation", obs, LABELS3)
+    assert _verdicts(j) == {"control": "positive", "unknown A": "positive", "blank": "negative"}
+    assert not j.control_failures
+    sample = j.outcome_for(1)
+    assert sample["meaning"] == "white precipitate: Ag+, Pb2+ or Hg2^2+ may be present"
+    assert "pellet white 0.9 mm" in sample["evidence"]
+    assert sample["quantities"]["pellet_height_mm"] == pytest.approx(0.9)
+    assert j.outcome_for(0)["meaning"].startswith("positive control as expected")
+
+
+def test_chloride_step_negative_sample():
+    j = judge_step(G1, "chloride-precipitation", [settled(0, *WHITE), clear(1), clear(2)], LABELS3)
+    assert _verdicts(j)["unknown A"] == "negative"
+    assert "absent" in j.outcome_for(1)["meaning"]
+
+
+def test_spoiled_control_flags_the_step_and_samples_become_inconclusive():
+    # The HCl has been replaced by water: the control (all three ions) stays clear.
+    obs = [clear(0), settled(1, *WHITE), clear(2)]
+    j = judge_step(G1, "chloride-precipitation", obs, LABELS3)
+    assert j.control_failures, "a control that fails must flag the step (exit status 1)"
+    f = j.control_failures[0]
+    assert (f.position, f.label, f.role, f.expected, f.observed) == (1, "control", "control", "positive", "negative")
+    assert _verdicts(j)["unknown A"] == "inconclusive"
+    assert "controls failed" in j.outcome_for(1)["meaning"]
+    assert any("check the reagent and the technique" in w for w in j.warnings)
+    assert j.record_block()["control_failures"][0]["label"] == "control"
+
+
+def test_cloudy_blank_fails_and_is_diagnosed():
+    obs = [settled(0, *WHITE), clear(1), cloudy(2, turbidity=0.3)]
+    j = judge_step(G1, "chloride-precipitation", obs, LABELS3)
+    assert [f.role for f in j.control_failures] == ["blank"]
+    assert any("cloudy blank: likely cause contaminated reagent or glassware" in w for w in j.warnings)
+    assert _verdicts(j)["unknown A"] == "inconclusive"
+
+
+def test_low_confidence_is_inconclusive_never_a_guess():
+    obs = [settled(0, *WHITE), settled(1, *WHITE, confidence=0.3), clear(2)]
+    j = judge_step(G1, "chloride-precipitation", obs, LABELS3)
+    o = j.outcome_for(1)
+    assert o["verdict"] == "inconclusive"
+    assert "confidence 0.30 below 0.50" in o["meaning"]
+
+
+def test_matches_neither_is_inconclusive():
+    # A yellow solid at the chloride step is none of the group I chlorides.
+    obs = [settled(0, *WHITE), settled(1, *YELLOW), clear(2)]
+    j = judge_step(G1, "chloride-precipitation", obs, LABELS3)
+    o = j.outcome_for(1)
+    assert o["verdict"] == "inconclusive"
+    assert "matches neither" in o["meaning"] and "pellet yellow" in o["meaning"]
+
+
+def test_empty_tube_is_inconclusive():
+    empty = TubeObservation(1, "empty", 0.97, None, None, None, False, None, None, None)
+    j = judge_step(G1, "chloride-precipitation", [settled(0, *WHITE), empty, clear(2)], LABELS3)
+    assert j.outcome_for(1)["verdict"] == "inconclusive"
+
+
+def test_chromate_clear_yellow_is_negative_and_suspension_needs_the_blank():
+    # K2CrO4 is itself yellow: a clear yellow liquid is a negative; a yellow
+    # suspension scattering more than the blank is PbCrO4 (common practice).
+    ctrl = settled(0, *YELLOW, liquid_lab=CHROMATE_YELLOW, liquid_name="yellow")
+    neg = clear(1, CHROMATE_YELLOW, "yellow", turbidity=0.02)
+    pos = cloudy(2, "yellow", (84.0, 2.0, 70.0), turbidity=0.4)
+    blank = clear(3, CHROMATE_YELLOW, "yellow", turbidity=0.01)
+    labels = parse_labels("1=control,2=K-1,3=K-2,4=blank", 4)
+    j = judge_step(G1, "chromate-test", [ctrl, neg, pos, blank], labels)
+    assert _verdicts(j) == {"control": "positive", "K-1": "negative", "K-2": "positive", "blank": "negative"}
+    assert j.outcome_for(2)["quantities"]["turbidity_above_blank"] == pytest.approx(0.39)
+    # Without a blank the suspension cannot be told from the reagent's own colour.
+    j2 = judge_step(G1, "chromate-test", [ctrl, neg, pos, blank], parse_labels("1=control,2=K-1,3=K-2", 4))
+    assert _verdicts(j2)["K-2"] == "inconclusive"
+    assert "no blank labelled" in j2.outcome_for(2)["meaning"]
+    assert any("no blank labelled" in w for w in j2.warnings)
+
+
+def test_chromate_slight_haze_between_thresholds_is_inconclusive():
+    ctrl = settled(0, *YELLOW, liquid_lab=CHROMATE_YELLOW, liquid_name="yellow")
+    hazy = cloudy(1, "yellow", (88.0, -3.0, 64.0), turbidity=0.075)
+    blank = clear(2, CHROMATE_YELLOW, "yellow", turbidity=0.01)
+    j = judge_step(G1, "chromate-test", [ctrl, hazy, blank], LABELS3)
+    assert _verdicts(j)["unknown A"] == "inconclusive"
+
+
+def test_ammonia_step_diagnoses_lead_left_in_the_residue():
+    obs = [settled(0, *BLACK), settled(1, *WHITE), clear(2)]
+    j = judge_step(G1, "ammonia-treatment", obs, LABELS3)
+    assert _verdicts(j)["unknown A"] == "inconclusive"
+    assert any("white residue left after ammonia" in w and "hot-water extraction was incomplete" in w
+               for w in j.warnings)
+    assert j.outcome_for(1)["warnings"]
+
+
+def test_hot_water_cloudy_supernatant_is_diagnosed():
+    hazy = cloudy(1, "white", turbidity=0.3, pellet=WHITE)
+    j = judge_step(G1, "hot-water-extraction", [settled(0, *WHITE), hazy, clear(2)], LABELS3)
+    assert any("cloudy supernatant after centrifuging hot" in w and "carried over" in w for w in j.warnings)
+    assert _verdicts(j)["unknown A"] == "positive"
+
+
+RED = (45.0, 58.0, 35.0)
+
+
+@pytest.mark.parametrize("lab, name, expected", [
+    ((46.0, 56.0, 34.0), "red", "positive"),        # as red as the control
+    ((95.5, 0.5, 1.5), "colourless", "negative"),   # as pale as the blank
+    ((70.0, 30.0, 18.0), "red", "inconclusive"),    # half-way: between control and blank
+    ((92.0, 6.0, 4.0), "pink", "inconclusive"),     # faint: 4 < ΔE00 to blank < 10
+])
+def test_thiocyanate_judged_beside_control_and_blank(lab, name, expected):
+    s = load_scheme("iron-thiocyanate")
+    obs = [clear(0, RED, "red"), clear(1, lab, name), clear(2)]
+    j = judge_step(s, "thiocyanate-test", obs, LABELS3)
+    assert not j.control_failures
+    assert j.outcome_for(1)["verdict"] == expected, j.outcome_for(1)["meaning"]
+
+
+def test_between_reason_is_given():
+    s = load_scheme("iron-thiocyanate")
+    j = judge_step(s, "thiocyanate-test", [clear(0, RED, "red"), clear(1, (70.0, 30.0, 18.0), "red"), clear(2)],
+                   LABELS3)
+    assert "between the blank and the positive control" in j.outcome_for(1)["meaning"]
+
+
+def test_de00_evidence_matches_colour_science():
+    """ΔE00 in the evidence equals colour-science's CIE 2000 (independent oracle).
+
+    References: Sharma, Wu & Dalal (2005), Color Res. Appl. 30(1) 21-30, the
+    formula both implement; colour-science 0.4 ``colour.delta_E(method="CIE 2000")``.
+    Tolerance 1e-4: the record rounds to four decimals.
+    """
+    import colour
+
+    s = load_scheme("iron-thiocyanate")
+    sample = (70.0, 30.0, 18.0)
+    j = judge_step(s, "thiocyanate-test", [clear(0, RED, "red"), clear(1, sample, "red"), clear(2)], LABELS3)
+    q = j.outcome_for(1)["quantities"]
+    assert q["liquid_de00_to_blank"] == pytest.approx(
+        float(colour.delta_E(np.array(sample), np.array(COLOURLESS), method="CIE 2000")), abs=1e-4)
+    assert q["liquid_de00_to_control"] == pytest.approx(
+        float(colour.delta_E(np.array(sample), np.array(RED), method="CIE 2000")), abs=1e-4)
+
+
+@pytest.mark.parametrize("turbidity, expected", [(0.20, "negative"), (0.30, "negative"), (0.33, "inconclusive"),
+                                                 (0.50, "positive")])
+def test_chloride_limit_sample_against_standard(turbidity, expected):
+    # Passes when not more opalescent than the standard (general limit-test rule, common practice).
+    s = load_scheme("chloride-limit")
+    obs = [cloudy(0, turbidity=0.30), cloudy(1, turbidity=turbidity) if turbidity > 0.1 else clear(1)]
+    j = judge_step(s, "opalescence-comparison", obs, parse_labels("1=standard 20 ppm,2=sample W-4", 2))
+    assert not j.control_failures
+    assert j.outcome_for(1)["verdict"] == expected
+    assert j.outcome_for(0)["role"] == "standard"
+
+
+def test_chloride_limit_clear_standard_is_a_failure():
+    s = load_scheme("chloride-limit")
+    j = judge_step(s, "opalescence-comparison", [clear(0), cloudy(1, turbidity=0.2)],
+                   parse_labels("1=standard,2=sample W-4", 2))
+    assert [f.role for f in j.control_failures] == ["standard"]
+    assert j.outcome_for(1)["verdict"] == "inconclusive"
+
+
+def test_unlabelled_tubes_are_ignored_and_roles_follow_labels():
+    obs = [settled(0, *WHITE), settled(1, *WHITE), clear(2), clear(3)]
+    j = judge_step(G1, "chloride-precipitation", obs, parse_labels("1=Positive Control,3=negative control,4=K-2", 4))
+    assert j.outcome_for(1) is None
+    assert [(o.position, o.role) for o in j.outcomes] == [(1, "control"), (3, "blank"), (4, "sample")]
+
+
+def test_missing_controls_are_warned_not_failed():
+    j = judge_step(G1, "chloride-precipitation", [settled(0, *WHITE)], parse_labels("1=K-1", 1))
+    assert not j.control_failures
+    assert any("no positive control labelled" in w for w in j.warnings)
+    assert any("no blank labelled" in w for w in j.warnings)
+    assert j.outcome_for(0)["verdict"] == "positive"
+
+
+def test_bad_step_and_bad_positions():
+    with pytest.raises(TubevisionInputError, match="has no step 'flame-test'.*chloride-precipitation"):
+        judge_step(G1, "flame-test", [clear(0)], {})
+    with pytest.raises(TubevisionInputError, match="position 3 given but only 1 tubes found"):
+        judge_step(G1, "chloride-precipitation", [clear(0)], {3: "K-1"})
+
+
+def test_observation_from_stage_outputs():
+    m = SimpleNamespace(index=2, empty=False,
+                        liquid=SimpleNamespace(lab=np.array([90.0, -1.0, 3.0]), turbidity=0.25, turbidity_sd=0.02),
+                        pellet=SimpleNamespace(present=True, height_mm=1.5, lab=np.array([93.0, 0.0, 2.0])))
+    c = SimpleNamespace(state="cloudy", confidence=0.8, liquid_colour_name="white", pellet_colour_name="white")
+    o = observation_from(m, c)
+    assert o == TubeObservation(2, "cloudy", 0.8, (90.0, -1.0, 3.0), "white", 0.25, True, 1.5, (93.0, 0.0, 2.0),
+                                "white", 0.02)
+    empty = SimpleNamespace(index=0, empty=True, liquid=None,
+                            pellet=SimpleNamespace(present=False, height_mm=None, lab=None))
+    oe = observation_from(empty, SimpleNamespace(state="empty", confidence=0.9, liquid_colour_name=None,
+                                                 pellet_colour_name=None))
+    assert oe.liquid_lab is None and oe.turbidity is None and not oe.pellet_present
+    nan_lab = SimpleNamespace(index=0, empty=False, liquid=SimpleNamespace(lab=np.array([np.nan, 0, 0]),
+                                                                           turbidity=float("nan")),
+                              pellet=SimpleNamespace(present=False, height_mm=None, lab=None))
+    on = observation_from(nan_lab, c)
+    assert on.liquid_lab is None and on.turbidity is None
+
+
+def test_outcomes_fit_the_record_schema_and_round_trip():
+    from tubevision.record.build import validate_record
+
+    obs = [settled(0, *WHITE), settled(1, *WHITE), clear(2), clear(3)]
+    labels = parse_labels("1=control,2=K-1,3=blank", 4)
+    j = judge_step(G1, "chloride-precipitation", obs, labels)
+    rec = record_for(j, obs, labels, "k1.jpg")
+    validate_record(rec)
+    assert rec["tubes"][3]["step_outcome"] is None
+    back = [observation_from_record(t) for t in rec["tubes"]]
+    assert back == obs
