@@ -34,7 +34,8 @@ _TUBE_CLOUDY = {
                "colour_name": "white"},
     "label": "K-7",
     "step_outcome": {"verdict": "positive", "meaning": "a chloride of the group precipitated",
-                     "evidence": "turbidity 0.4213 >= 0.15; pellet 2.14 mm"},
+                     "evidence": "turbidity 0.4213 >= 0.15; pellet 2.14 mm", "role": "sample",
+                     "confidence": 0.874, "warnings": ["pellet partly hidden by the rack clip"]},
     "warnings": [],
 }
 _TUBE_CLEAR = {

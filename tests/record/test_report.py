@@ -45,7 +45,7 @@ def test_table_agrees_with_record_and_csv_on_every_tube():
     assert [r["id"] for r in table] == [t["id"] for t in rec["tubes"]] == [r["id"] for r in rows]
     shared = ["id", "row", "state", "confidence", "L", "a", "b", "L_sd", "a_sd", "b_sd", "colour_name",
               "turbidity", "turbidity_sd", "pellet_present", "pellet_height_mm", "pellet_height_mm_sd",
-              "pellet_colour_name", "label", "verdict"]
+              "pellet_colour_name", "label", "role", "verdict", "verdict_confidence"]
     for shown, row, tube in zip(table, rows, rec["tubes"]):
         for key in shared:
             assert shown.get(key, "") == row[key], (tube["id"], key)
@@ -179,6 +179,21 @@ def test_warnings_from_photo_and_tubes_are_listed():
     text = read_text(render_report(make_record(), small_png())).text
     assert "Photo: card partly shaded" in text
     assert "T2: meniscus glare on 4 % of the column" in text
+    assert "T1: pellet partly hidden by the rack clip" in text  # from the step outcome
+
+
+def test_failed_control_is_shown_prominently():
+    rec = make_record(scheme={"name": "group1", "step": "chloride-precipitation", "warnings": ["w1"],
+                              "control_failures": [{"position": 2, "label": "control", "role": "control",
+                                                    "expected": "white solid", "observed": "clear",
+                                                    "reason": "turbidity 0.0125 < 0.15"}]})
+    html_text = render_report(rec, None)
+    text = read_text(html_text).text
+    assert "Control failed" in text and "Controls 1 failed" in text
+    assert "control 'control' (T2): expected white solid, observed clear; turbidity 0.0125 < 0.15" in text
+    assert "Scheme: w1" in text
+    assert html_text.index('id="control-failures"') < html_text.index('id="tubes"')
+    assert "Control failed" not in read_text(render_report(make_record(), None)).text
 
 
 def test_no_tubes_renders_a_clear_line():

@@ -50,7 +50,16 @@ def test_every_tube_row_carries_the_record_values_exactly():
         assert (row["label"] or None) == tube["label"]
         outcome = tube["step_outcome"] or {}
         assert (row["verdict"] or None) == outcome.get("verdict")
+        assert (row["role"] or None) == outcome.get("role")
+        assert _num(row["verdict_confidence"]) == outcome.get("confidence")
         assert row["photo_sha256"] == rec["image"]["sha256"]
+
+
+def test_hand_made_records_follow_the_record_schema():
+    """The fixtures are contract records: the lead's JSON Schema accepts them."""
+    from tubevision.record.build import validate_record
+
+    validate_record(make_record())
 
 
 def test_header_and_line_ends_follow_rfc4180():

@@ -109,6 +109,13 @@ def _tube_table(record: dict) -> str:
         meaning = get(tube, "step_outcome", "meaning")
         evidence = get(tube, "step_outcome", "evidence")
         why = ""
+        extra = []
+        if r["role"]:
+            extra.append("role " + _keyed("role", r["role"]))
+        if r["verdict_confidence"]:
+            extra.append("confidence " + _keyed("verdict_confidence", r["verdict_confidence"]))
+        if extra:
+            why += f'<div class="small">{", ".join(extra)}</div>'
         if meaning:
             why += f"<div>{esc(meaning)}</div>"
         if evidence:
@@ -265,11 +272,40 @@ def _all_warnings(record: dict) -> list[tuple[str, str]]:
     items: list[tuple[str, str]] = []
     for w in record.get("warnings") or []:
         items.append(("Photo:", str(w)))
+    for w in get(record, "scheme", "warnings", default=[]) or []:
+        items.append(("Scheme:", str(w)))
     for tube in record.get("tubes") or []:
         if isinstance(tube, dict):
-            for w in tube.get("warnings") or []:
-                items.append((f"{tube.get('id', '?')}:", str(w)))
+            tw = list(tube.get("warnings") or [])
+            tw += list(get(tube, "step_outcome", "warnings", default=[]) or [])
+            for w in dict.fromkeys(str(x) for x in tw):
+                items.append((f"{tube.get('id', '?')}:", w))
     return items
+
+
+def _control_failures(record: dict) -> list[str]:
+    """One line per failed control, blank or standard, from the record's ``scheme`` block."""
+    lines = []
+    for c in get(record, "scheme", "control_failures", default=[]) or []:
+        if isinstance(c, dict):
+            who = " ".join(str(v) for v in (c.get("role"), repr(c.get("label")) if c.get("label") else None,
+                                            f"(T{c['position']})" if c.get("position") is not None else None)
+                           if v)
+            lines.append(f"{who or 'a control'}: expected {c.get('expected') or '?'}, observed "
+                         f"{c.get('observed') or '?'}" + (f"; {c['reason']}" if c.get("reason") else ""))
+        else:
+            lines.append(str(c))
+    return lines
+
+
+def _controls_notice(record: dict) -> str:
+    fails = _control_failures(record)
+    if not fails:
+        return ""
+    lis = "".join(f"<li>{esc(x)}</li>" for x in fails)
+    return (f'<section id="control-failures" class="notice"><h2>Control failed</h2><p>The verdicts of this '
+            f"photo cannot be relied on until this is resolved: check the reagents and the technique.</p>"
+            f"<ul>{lis}</ul></section>")
 
 
 def _hash_line(name: Any, digest: Any) -> str:
@@ -287,7 +323,9 @@ def _provenance(record: dict, annotated_sha: str | None, record_sha: str | None)
     device = " ".join(str(v) for v in (get(prov, "device", "make"), get(prov, "device", "model")) if v)
     size = (f"{img.get('width')} × {img.get('height')} px" if img.get("width") and img.get("height") else "")
     scheme = record.get("scheme") if isinstance(record.get("scheme"), dict) else None
-    scheme_file = get(prov, "scheme", "file") or get(prov, "scheme", "name")
+    scheme_file = (get(prov, "scheme", "file") or get(prov, "scheme", "name")
+                   or get(scheme, "file") or get(scheme, "source"))
+    scheme_sha = get(prov, "scheme", "sha256") or get(scheme, "sha256")
     rows: list[tuple[str, str]] = [
         ("Photo", esc(img.get("file"))),
         ("Photo SHA-256", code(img.get("sha256"))),
@@ -300,7 +338,7 @@ def _provenance(record: dict, annotated_sha: str | None, record_sha: str | None)
         ("Software", esc(" ".join(str(v) for v in (sw.get("name"), sw.get("version")) if v))),
         ("Libraries", esc(dep_text)),
         ("Scheme", esc(" — step ".join(str(v) for v in (get(scheme, "name"), get(scheme, "step")) if v))),
-        ("Scheme file", _hash_line(scheme_file, get(prov, "scheme", "sha256"))),
+        ("Scheme file", _hash_line(scheme_file, scheme_sha)),
         ("Card reference", _hash_line(get(prov, "card_ref", "file"), get(prov, "card_ref", "sha256"))),
         ("Layout file", _hash_line(get(prov, "layout", "file"), get(prov, "layout", "sha256"))),
         ("Model file", _hash_line(get(prov, "model", "file"), get(prov, "model", "sha256"))),
@@ -330,6 +368,9 @@ def _summary(record: dict) -> str:
         cal_text += f", ΔE00 mean {fmt_num(mean)} / max {fmt_num(mx)}"
     items = [("Tubes", str(len(tubes))), ("Calibration", cal_text),
              ("Warnings", str(len(_all_warnings(record))))]
+    fails = _control_failures(record)
+    if fails:
+        items.append(("Controls", f"{len(fails)} failed"))
     if verdicts:
         items.append(("Verdicts", ", ".join(f"{n} {v}" for v, n in sorted(verdicts.items()))))
     return '<div class="summary">' + "".join(
@@ -378,7 +419,7 @@ def render_report(record: dict, annotated_png: bytes | None) -> str:
         sub.append(f"analysed {ran}")
     body = [f"<header><h1>{esc(title)}</h1>",
             f'<p class="subtitle">{esc("; ".join(sub))}</p></header>' if sub else "</header>",
-            _summary(record)]
+            _summary(record), _controls_notice(record)]
     if annotated_png:
         body.append('<section id="photo"><h2>Annotated photo</h2><figure>'
                     f'<img src="{png_data_uri(annotated_png)}" alt="{esc("Annotated photo " + str(photo))}">'

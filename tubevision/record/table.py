@@ -36,13 +36,15 @@ TUBES_CSV_COLUMNS: tuple[str, ...] = (
     "colour_name", "turbidity", "turbidity_sd",
     "pellet_present", "pellet_height_mm", "pellet_height_mm_sd",
     "pellet_L", "pellet_a", "pellet_b", "pellet_colour_name",
-    "label", "verdict", "meaning", "evidence",
+    "label", "role", "verdict", "verdict_confidence", "meaning", "evidence",
     "photo_file", "photo_sha256",
 )
 """Columns of ``tubes.csv``, in order. ``L, a, b`` are the liquid's CIELAB
 (D65, 2°) and ``*_sd`` their standard deviations, as the record's
 ``liquid.lab`` / ``liquid.lab_sd``; ``bbox_*`` is the record's half-open
-pixel box; the photo columns let tables of several photos be stacked."""
+pixel box; ``role`` and ``verdict_confidence`` come from the scheme's
+``step_outcome`` where it gives them; the photo columns let tables of
+several photos be stacked."""
 
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 """Leading characters that make spreadsheets evaluate a cell (OWASP, CSV Injection)."""
@@ -89,12 +91,14 @@ def tube_row(tube: dict, image: dict | None = None) -> dict[str, str]:
         "pellet_height_mm": get(tube, "pellet", "height_mm"),
         "pellet_height_mm_sd": get(tube, "pellet", "height_mm_sd"),
         "pellet_L": plab[0], "pellet_a": plab[1], "pellet_b": plab[2],
+        "verdict_confidence": get(tube, "step_outcome", "confidence"),
     }
     texts = {
         "id": tube.get("id"), "state": tube.get("state"),
         "colour_name": get(tube, "liquid", "colour_name"),
         "pellet_colour_name": get(tube, "pellet", "colour_name"),
         "label": tube.get("label"),
+        "role": get(tube, "step_outcome", "role"),
         "verdict": get(tube, "step_outcome", "verdict"),
         "meaning": get(tube, "step_outcome", "meaning"),
         "evidence": get(tube, "step_outcome", "evidence"),
@@ -131,7 +135,7 @@ def tubes_csv(record: dict) -> str:
     >>> lines = tubes_csv(rec).splitlines()
     >>> lines[1].split(",")[:12]
     ['T1', '0', '0', '1', '2', '3', '4', 'clear', '0.9', '95.0', '-0.5', '12.25']
-    >>> lines[1].split(",")[25]
+    >>> lines[1].split(",")[TUBES_CSV_COLUMNS.index("label")]
     "'=sample K-7"
     """
     if not isinstance(record, dict) or not isinstance(record.get("tubes"), list):
