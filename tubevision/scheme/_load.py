@@ -252,8 +252,13 @@ def parse_scheme(data: bytes | str, *, where: str = "<scheme>", origin: str | No
     try:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
-        line = getattr(exc, "lineno", None)
-        msg = getattr(exc, "msg", str(exc))
+        # Python 3.11's TOMLDecodeError has no lineno attribute; its message
+        # ends "(at line L, column C)".
+        msg = str(exc)
+        m = re.search(r"\s*\(at line (\d+), column (\d+)\)\s*$", msg)
+        line = getattr(exc, "lineno", None) or (int(m.group(1)) if m else None)
+        if m:
+            msg = msg[:m.start()] + f" (column {m.group(2)})"
         at = f" line {line}" if line else ""
         raise TubevisionInputError(f"scheme file {where}{at}: TOML syntax error: {msg}") from None
     errors = sorted(_validator().iter_errors(doc), key=lambda e: (len(list(e.absolute_path)), str(e.message)))
@@ -308,7 +313,7 @@ def _line_of(text: str, path: list) -> int:
         if isinstance(part, int):
             if prev_key is not None:
                 headers = [m.start() for m in re.finditer(
-                    r"^\s*\[\[\s*(?:[\w.-]+\.)?" + re.escape(prev_key) + r"\s*\]\]", text, re.M)]
+                    r"^[ \t]*\[\[\s*(?:[\w.-]+\.)?" + re.escape(prev_key) + r"\s*\]\]", text, re.M)]
                 after = [h for h in headers if h >= pos]
                 if part < len(after):
                     pos = after[part]
@@ -324,7 +329,11 @@ def _line_of(text: str, path: list) -> int:
         pat = re.compile(r"(?:^|[\s{,.\[])\"?" + key + r"\"?\s*(?:=|\.|\])", re.M)
         m = pat.search(text, pos)
         if m:
-            pos = m.start() + (1 if text[m.start()] in " \t\n{,.[" else 0)
+            key_at = m.start() + (1 if text[m.start()] in " \t\n{,.[" else 0)
+            line_start = text.rfind("\n", 0, key_at) + 1
+            # A table header: count from the start of its line, so that the
+            # header itself is the array's element 0.
+            pos = line_start if text[line_start:key_at].lstrip().startswith("[") else key_at
         prev_key = str(part)
     return text.count("\n", 0, pos) + 1
 
