@@ -37,6 +37,8 @@ CONCLUSION = {
     "samples": {"K-7": {"calls": {"Ag+": "present", "Pb2+": "absent", "Hg2^2+": "inconclusive"},
                         "reasons": ["white solid after chloride; it stayed in hot water"]}},
     "controls": {"control": {"passed": False, "failures": ["expected a white solid at chloride-precipitation"]}},
+    "steps": {"K-7": {"chloride-precipitation": "positive", "hot-water-extraction": "negative"}},
+    "scheme_sha256": "e" * 64,
     "warnings": ["step ammonia-treatment not photographed"],
 }
 
@@ -93,7 +95,9 @@ def test_calls_reasons_controls_and_warnings_are_shown():
                    "white solid after chloride; it stayed in hot water", "control: failed",
                    "expected a white solid at chloride-precipitation",
                    "Conclusion: step ammonia-treatment not photographed",
-                   "bench-k7.jpg T2: meniscus glare on 4 % of the column"):
+                   "bench-k7.jpg T2: meniscus glare on 4 % of the column",
+                   "Step verdicts, all photos combined: chloride-precipitation positive",
+                   "hot-water-extraction negative", "scheme SHA-256 " + "e" * 64):
         assert needle in text, needle
 
 

@@ -118,6 +118,10 @@ def _samples(records: list[dict], conclusion: dict) -> str:
                    f"<tbody>{call_cells or NO_CALLS}</tbody></table>")
         if reasons:
             out.append("<ul class=\"reasons\">" + "".join(f"<li>{esc(r)}</li>" for r in reasons) + "</ul>")
+        steps = get(conclusion, "steps", label)
+        if isinstance(steps, dict) and steps:
+            out.append('<p class="step-verdicts">Step verdicts, all photos combined: ' + "; ".join(
+                f"{esc(st)} {verdict_badge(v)}" for st, v in steps.items()) + "</p>")
         out.append("<h4>Evidence chain</h4>" + _chain_table(evidence_chain(records, str(label)), str(label)))
         out.append("</article>")
     out.append("</section>")
@@ -159,7 +163,8 @@ def _controls(records: list[dict], conclusion: dict) -> str:
         passed = c.get("passed")
         word = "passed" if passed else ("failed" if passed is False else "not judged")
         cls = "ok" if passed else "notice"
-        out.append(f'<article class="control" data-control="{esc(label)}"><h3>{esc(label)}: '
+        role = f" ({esc(c['role'])})" if c.get("role") and c.get("role") != label else ""
+        out.append(f'<article class="control" data-control="{esc(label)}"><h3>{esc(label)}{role}: '
                    f'<span class="{cls}">{word}</span></h3>')
         fails = c.get("failures") if isinstance(c.get("failures"), list) else []
         if fails:
@@ -228,7 +233,9 @@ def render_session_report(records: list[dict], conclusion: dict) -> str:
     steps = [str(s) for s in dict.fromkeys(get(r, "scheme", "step") for r in records) if s]
     body = [f"<header><h1>{esc(title)}</h1>",
             f'<p class="subtitle">{len(records)} photo(s)'
-            + (f"; steps: {esc(', '.join(steps))}" if steps else "") + "</p></header>",
+            + (f"; steps: {esc(', '.join(steps))}" if steps else "")
+            + (f"; scheme SHA-256 {code(conclusion.get('scheme_sha256'))}" if conclusion.get("scheme_sha256")
+               else "") + "</p></header>",
             '<p class="small">Calls are the tool\'s reading of the photos against the scheme; '
             "a person confirms them before they enter a notebook.</p>",
             _overview(conclusion), _samples(records, conclusion), _controls(records, conclusion),
