@@ -63,6 +63,15 @@ def _build_parser() -> argparse.ArgumentParser:
     c = sub.add_parser("conclude", help="combine step records into calls per sample")
     c.add_argument("records", nargs="+", metavar="RECORD.json")
     c.add_argument("--json", action="store_true", help="print the conclusion as JSON")
+    c.add_argument("--report", metavar="FILE", help="also write a session report (HTML) there")
+
+    v = sub.add_parser("verify", help="check an archive or output folder against its recorded hashes")
+    v.add_argument("path", metavar="PATH", help="an archive (.zip), output folder or record.json")
+
+    r = sub.add_parser("archive", help="pack output folders and photos as an RO-Crate 1.1 zip")
+    r.add_argument("zip", metavar="OUT.zip")
+    r.add_argument("inputs", nargs="+", metavar="DIR_OR_FILE")
+    r.add_argument("--overwrite", action="store_true", help="replace an existing archive")
 
     k = sub.add_parser("card", help="write the printable reference card and its nominal values")
     k.add_argument("--out", required=True, metavar="FILE", help="card.png or card.pdf")
@@ -168,8 +177,36 @@ def _cmd_conclude(args) -> int:
     else:
         sys.stdout.write(scheme_mod.conclusion_text(conclusion) if hasattr(scheme_mod, "conclusion_text")
                          else json.dumps(conclusion, indent=2, ensure_ascii=False) + "\n")
+    if args.report:
+        from .record.session import write_session_report
+
+        write_session_report(args.report, records, conclusion)
+        print(f"wrote {args.report}", file=sys.stderr)
     failed = any(not c.get("passed", True) for c in conclusion.get("controls", {}).values())
     return 1 if failed else 0
+
+
+def _cmd_verify(args) -> int:
+    from .record.verify import verify
+
+    result = verify(args.path)
+    for line in result.lines():
+        print(line)
+    return result.exit_status
+
+
+def _cmd_archive(args) -> int:
+    from .record.crate import archive_inputs, write_crate
+
+    if not args.zip.endswith(".zip"):
+        raise TubevisionInputError(f"archive: {args.zip}: the archive's name must end in .zip")
+    for item in args.inputs:
+        if not Path(item).exists():
+            raise TubevisionInputError(f"archive: {item}: no such file or folder")
+    files, base = archive_inputs(args.inputs, exclude=args.zip)
+    write_crate(args.zip, files, base=base, overwrite=args.overwrite)
+    print(f"wrote {args.zip} ({len(files)} files)", file=sys.stderr)
+    return 0
 
 
 def _cmd_card(args) -> int:
@@ -213,6 +250,10 @@ def main(argv: list[str] | None = None) -> int:
             return _cmd_card(args)
         if args.command == "demo":
             return _cmd_demo(args)
+        if args.command == "verify":
+            return _cmd_verify(args)
+        if args.command == "archive":
+            return _cmd_archive(args)
         raise TubevisionInputError(f"unknown command {args.command}")  # pragma: no cover
     except TubevisionInputError as exc:
         print(f"tubevision: error: {exc}", file=sys.stderr)

@@ -15,6 +15,9 @@ from pathlib import Path
 from ..errors import TubevisionInputError
 from .annotate import annotate, encode_png
 from .build import build_record, settings_digest, to_json
+from .report import render_report
+from .table import tubes_csv
+from .verify import manifest_sha256
 from .write import write_folder
 
 __all__ = ["output_folder_for", "write_photo_outputs", "photo_output_files"]
@@ -53,13 +56,9 @@ def photo_output_files(analysis, record: dict) -> dict[str, bytes]:
     """The files of one photo's output folder, by name."""
     png = encode_png(annotate(analysis.photo.pixels, record))
     files = {"record.json": to_json(record).encode("utf-8"), "annotated.png": png}
-    try:
-        from .report import render_report
-        from .table import tubes_csv
-    except ImportError:  # the report modules arrive with the evidence stage
-        return files
     files["report.html"] = render_report(record, png).encode("utf-8")
     files["tubes.csv"] = tubes_csv(record).encode("utf-8")
+    files["manifest.sha256"] = manifest_sha256(files)  # last: it lists the files above
     return files
 
 
