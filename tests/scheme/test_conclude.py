@@ -208,3 +208,15 @@ def test_conclusion_is_json_and_has_a_text_form():
     assert "tubevision.conclusion/1" in text
     summary = conclusion_text(out)
     assert "sample K-7: Ag+ present, Pb2+ absent, Hg2^2+ absent" in summary
+
+
+def test_inconclusive_step_reason_carries_the_photo_meaning():
+    recs = photo_records({"K-7": {"Ag+"}})
+    acid = next(r for r in recs if r["scheme"]["step"] == "acidification")
+    t = next(t for t in acid["tubes"] if t["label"] == "K-7")
+    t["step_outcome"]["verdict"] = "inconclusive"
+    t["step_outcome"]["meaning"] = "inconclusive: state confidence 0.31 below 0.50"
+    out = conclude(recs)
+    assert out["samples"]["K-7"]["calls"]["Ag+"] == "inconclusive"
+    assert any("acidification inconclusive (inconclusive: state confidence 0.31" in r
+               for r in out["samples"]["K-7"]["reasons"])

@@ -247,3 +247,17 @@ def test_outcomes_fit_the_record_schema_and_round_trip():
     assert rec["tubes"][3]["step_outcome"] is None
     back = [observation_from_record(t) for t in rec["tubes"]]
     assert back == obs
+
+
+def test_white_residue_misnamed_grey_is_not_a_mercury_positive():
+    # Hg + HgNH2Cl is grey-black (dark); a light residue named "grey" is still not
+    # the darkening the ammonia step looks for (scheme: max_pellet_lightness).
+    light_grey = settled(1, "grey", (90.0, 0.0, 1.5))
+    dark_grey = settled(1, "grey", (45.0, 0.0, 1.0))
+    j = judge_step(G1, "ammonia-treatment", [settled(0, *BLACK), light_grey, clear(2)], LABELS3)
+    assert j.outcome_for(1)["verdict"] == "inconclusive" and "pellet L* 90" in j.outcome_for(1)["meaning"]
+    j = judge_step(G1, "ammonia-treatment", [settled(0, *BLACK), dark_grey, clear(2)], LABELS3)
+    assert j.outcome_for(1)["verdict"] == "positive"
+    # A spent-ammonia control (white residue, misnamed grey) is flagged.
+    j = judge_step(G1, "ammonia-treatment", [light_grey, dark_grey, clear(2)], LABELS3)
+    assert j.control_failures and j.outcome_for(1)["verdict"] == "inconclusive"

@@ -58,15 +58,15 @@ def _scheme_of(records: list[dict]) -> tuple[Scheme, list[str]]:
     return scheme, warnings
 
 
-def _combine_step(entries: list[tuple[str | None, bool, str]]) -> tuple[str, str]:
+def _combine_step(entries: list[tuple[str | None, bool, str, str]]) -> tuple[str, str]:
     """One verdict for a sample at a step from every photo of it: (verdict, why).
 
-    ``entries``: (verdict or None, controls failed?, where). Verdicts from
-    photos whose controls failed do not count; the remaining decided verdicts
-    must agree.
+    ``entries``: (verdict or None, controls failed?, where, meaning). Verdicts
+    from photos whose controls failed do not count; the remaining decided
+    verdicts must agree.
     """
-    spoiled = [w for v, bad, w in entries if bad]
-    decided = {v for v, bad, _ in entries if not bad and v in ("positive", "negative")}
+    spoiled = [w for v, bad, w, _ in entries if bad]
+    decided = {v for v, bad, _, _ in entries if not bad and v in ("positive", "negative")}
     if len(decided) == 1:
         v = decided.pop()
         note = f" (controls failed in {', '.join(spoiled)}; a repeat decided it)" if spoiled else ""
@@ -75,7 +75,10 @@ def _combine_step(entries: list[tuple[str | None, bool, str]]) -> tuple[str, str
         return "inconclusive", "photos of this step disagree"
     if spoiled:
         return "inconclusive", f"controls failed in {', '.join(spoiled)}"
-    return "inconclusive", "judged inconclusive"
+    meanings = [m for v, bad, _, m in entries if m]
+    if not entries or all(v is None for v, _, _, _ in entries):
+        return "inconclusive", "the sample was not judged in that photo"
+    return "inconclusive", "; ".join(dict.fromkeys(meanings)) or "judged inconclusive"
 
 
 def conclude(records: list[dict]) -> dict[str, Any]:
@@ -108,7 +111,7 @@ def conclude(records: list[dict]) -> dict[str, Any]:
     scheme, warnings = _scheme_of(records)
     step_names = [s.name for s in scheme.steps]
 
-    sample_steps: dict[str, dict[str, list[tuple[str | None, bool, str]]]] = {}
+    sample_steps: dict[str, dict[str, list[tuple[str | None, bool, str, str]]]] = {}
     controls: dict[str, dict[str, Any]] = {}
     for i, rec in enumerate(records):
         where = _where(i, rec)
@@ -130,7 +133,9 @@ def conclude(records: list[dict]) -> dict[str, Any]:
             role = roles.get(str(pos)) or (outcome or {}).get("role") or role_of(scheme, label)
             if role == "sample":
                 verdict = outcome.get("verdict") if outcome else None
-                sample_steps.setdefault(label, {}).setdefault(step, []).append((verdict, bool(failures), where))
+                meaning = str(outcome.get("meaning", "")) if outcome else ""
+                sample_steps.setdefault(label, {}).setdefault(step, []).append(
+                    (verdict, bool(failures), where, meaning))
             elif role in ("control", "blank", "standard"):
                 c = controls.setdefault(label, {"role": role, "passed": True, "failures": [], "steps": []})
                 c["steps"].append(step)

@@ -259,7 +259,8 @@ class _Refs:
 
 def _quantities(obs: TubeObservation, refs: _Refs) -> dict[str, float | None]:
     q: dict[str, float | None] = {"confidence": obs.confidence, "turbidity": obs.turbidity,
-                                  "pellet_height_mm": obs.pellet_height_mm}
+                                  "pellet_height_mm": obs.pellet_height_mm,
+                                  "pellet_lightness": obs.pellet_lab[0] if obs.pellet_lab is not None else None}
 
     def de(a, b):
         if a is None or b is None:
@@ -289,6 +290,8 @@ _THRESHOLDS = (
     ("min_turbidity_ratio_to_standard", "turbidity_ratio_to_standard", ">=", "turbidity / standard", "standard"),
     ("max_turbidity_ratio_to_standard", "turbidity_ratio_to_standard", "<=", "turbidity / standard", "standard"),
     ("min_pellet_height_mm", "pellet_height_mm", ">=", "pellet height mm", None),
+    ("min_pellet_lightness", "pellet_lightness", ">=", "pellet L*", None),
+    ("max_pellet_lightness", "pellet_lightness", "<=", "pellet L*", None),
 )
 
 
@@ -315,7 +318,7 @@ def _holds(cond: Condition, obs: TubeObservation, q: dict) -> tuple[bool | None,
             continue
         v = q.get(key)
         if v is None:
-            if key == "pellet_height_mm" and not obs.pellet_present:
+            if key in ("pellet_height_mm", "pellet_lightness") and not obs.pellet_present:
                 unmet.append("no pellet")
             else:
                 unknown.append(f"{words} unknown" + (f" (no {ref} labelled or measured)" if ref else ""))

@@ -13,7 +13,7 @@ import hashlib
 import json
 import re
 import tomllib
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from functools import lru_cache
 from importlib import resources
 from pathlib import Path
@@ -58,6 +58,8 @@ class Condition:
     pellet_colours: tuple[str, ...] = ()
     liquid_colours: tuple[str, ...] = ()
     min_pellet_height_mm: float | None = None
+    min_pellet_lightness: float | None = None
+    max_pellet_lightness: float | None = None
     min_turbidity_above_blank: float | None = None
     max_turbidity_above_blank: float | None = None
     min_liquid_de00_to_blank: float | None = None
@@ -157,7 +159,6 @@ class Scheme:
     sha256: str
     notes: str = ""
     safety: str = ""
-    raw: dict = field(default_factory=dict, repr=False, compare=False)
 
     def step(self, name: str) -> Step:
         """The step called ``name``.
@@ -243,8 +244,17 @@ def load_scheme(name_or_path: str | Path) -> Scheme:
 
 
 def parse_scheme(data: bytes | str, *, where: str = "<scheme>", origin: str | None = None) -> Scheme:
-    """Parse and check the text of a scheme file (see :func:`load_scheme`)."""
+    """Parse and check the text of a scheme file (see :func:`load_scheme`).
+
+    Results are cached by content (the JSON Schema check is the slow part),
+    so that a batch of photos or records parses each scheme once.
+    """
     raw_bytes = data.encode("utf-8") if isinstance(data, str) else data
+    return _parse_cached(raw_bytes, where, origin)
+
+
+@lru_cache(maxsize=32)
+def _parse_cached(raw_bytes: bytes, where: str, origin: str | None) -> Scheme:
     try:
         text = raw_bytes.decode("utf-8")
     except UnicodeDecodeError:
@@ -345,6 +355,8 @@ def _cond(d: dict) -> Condition:
         pellet_colours=tuple(d.get("pellet_colours", ())),
         liquid_colours=tuple(d.get("liquid_colours", ())),
         min_pellet_height_mm=d.get("min_pellet_height_mm"),
+        min_pellet_lightness=d.get("min_pellet_lightness"),
+        max_pellet_lightness=d.get("max_pellet_lightness"),
         min_turbidity_above_blank=d.get("min_turbidity_above_blank"),
         max_turbidity_above_blank=d.get("max_turbidity_above_blank"),
         min_liquid_de00_to_blank=d.get("min_liquid_de00_to_blank"),
@@ -426,7 +438,7 @@ def _build(doc: dict, *, where: str, origin: str, text: str, sha256: str) -> Sch
         between_band=(float(band[0]), float(band[1])),
         diagnostics=tuple(_diag(d) for d in doc.get("diagnostics", ())),
         origin=origin, file=where, sha256=sha256, notes=head.get("notes", ""),
-        safety=head.get("safety", ""), raw=doc,
+        safety=head.get("safety", ""),
     )
 
 
