@@ -16,7 +16,7 @@ import json
 import pytest
 
 from tubevision.errors import TubevisionInputError
-from tubevision.scheme import conclude, conclusion_text
+from tubevision.scheme import conclude, conclusion_text, validate_conclusion
 
 from ._group1 import GROUP1, clear, photo_records, settled, WHITE, COLOURLESS
 
@@ -31,6 +31,7 @@ def _expected(ions: set[str]) -> dict[str, str]:
 def test_every_subset_of_the_three_ions_is_called(ions):
     recs = photo_records({"K-7": ions})
     out = conclude(recs)
+    validate_conclusion(out)
     assert out["schema"] == "tubevision.conclusion/1"
     assert out["scheme"] == "group1"
     assert out["samples"]["K-7"]["calls"] == _expected(ions)
@@ -204,6 +205,7 @@ def test_hand_written_records_without_judge_step():
 
 def test_conclusion_is_json_and_has_a_text_form():
     out = conclude(photo_records({"K-7": {"Ag+"}}))
+    validate_conclusion(out)
     text = json.dumps(out, allow_nan=False)
     assert "tubevision.conclusion/1" in text
     summary = conclusion_text(out)
@@ -220,3 +222,10 @@ def test_inconclusive_step_reason_carries_the_photo_meaning():
     assert out["samples"]["K-7"]["calls"]["Ag+"] == "inconclusive"
     assert any("acidification inconclusive (inconclusive: state confidence 0.31" in r
                for r in out["samples"]["K-7"]["reasons"])
+
+
+def test_conclusion_schema_rejects_a_bad_call():
+    out = conclude(photo_records({"K-7": {"Ag+"}}))
+    out["samples"]["K-7"]["calls"]["Ag+"] = "maybe"
+    with pytest.raises(TubevisionInputError, match="conclusion samples/K-7/calls/Ag\\+: 'maybe' is not one of"):
+        validate_conclusion(out)

@@ -37,6 +37,9 @@ def test_chloride_step_positive_sample_with_good_controls():
     assert "pellet white 0.9 mm" in sample["evidence"]
     assert sample["quantities"]["pellet_height_mm"] == pytest.approx(0.9)
     assert j.outcome_for(0)["meaning"].startswith("positive control as expected")
+    info = j.record_block()["step_info"]
+    assert info["fraction"] == "precipitate" and info["reagent"].startswith("6 M HCl")
+    assert any("corrosive" in h for h in info["hazards"]) and "safety data sheet" in info["safety"]
 
 
 def test_chloride_step_negative_sample():

@@ -14,7 +14,7 @@ known trouble signs, and the rules that combine step verdicts into calls.
 * :func:`conclude` combines records of several steps into calls.
 """
 
-from ._conclude import CONCLUSION_SCHEMA_ID, conclude, conclusion_text
+from ._conclude import CONCLUSION_SCHEMA_ID, conclude, conclusion_text, validate_conclusion
 from ._judge import (
     ControlFailure,
     StepJudgement,
@@ -58,4 +58,5 @@ __all__ = [
     "role_of",
     "scheme_block",
     "step_names",
+    "validate_conclusion",
 ]

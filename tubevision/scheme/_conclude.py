@@ -21,6 +21,28 @@ CONCLUSION_SCHEMA_ID = "tubevision.conclusion/1"
 """Value of the conclusion's ``schema`` key (contract)."""
 
 
+def validate_conclusion(conclusion: dict) -> None:
+    """Check a conclusion against ``tubevision/data/conclusion.schema.json``.
+
+    Raises
+    ------
+    TubevisionInputError
+        It does not conform; the message names the first failing path.
+    """
+    import json
+    from importlib import resources
+
+    import jsonschema
+
+    schema = json.loads(resources.files("tubevision").joinpath("data", "conclusion.schema.json").read_text("utf-8"))
+    errors = sorted(jsonschema.Draft202012Validator(schema).iter_errors(conclusion),
+                    key=lambda e: list(map(str, e.absolute_path)))
+    if errors:
+        e = errors[0]
+        where = "/".join(map(str, e.absolute_path)) or "(top level)"
+        raise TubevisionInputError(f"conclusion {where}: {e.message}")
+
+
 def _where(i: int, rec: dict) -> str:
     image = rec.get("image") if isinstance(rec.get("image"), dict) else {}
     return f"record {i + 1} ({image.get('file', '?')})"

@@ -208,6 +208,7 @@ class StepJudgement:
     outcomes: tuple[TubeOutcome, ...]
     control_failures: tuple[ControlFailure, ...] = ()
     warnings: tuple[str, ...] = ()
+    step_info: dict = field(default_factory=dict, compare=False)
 
     @property
     def failed(self) -> bool:
@@ -231,8 +232,10 @@ def scheme_block(judgement: StepJudgement) -> dict:
 
     ``{"name", "source", "file", "sha256", "step", "control_failures": [ {position,
     label, role, expected, observed, reason} ], "roles": {"1": "control", ...},
-    "warnings": [...]}``. ``source`` is the built-in name or path the scheme
-    was loaded from, so that :func:`conclude` can load it again.
+    "warnings": [...], "step_info": {title, reagent, fraction, source, reactions,
+    hazards, safety}}``. ``source`` is the built-in name or path the scheme
+    was loaded from, so that :func:`conclude` can load it again; ``step_info``
+    is for the report (what was done, from which text, with which cautions).
     """
     return {
         "name": judgement.scheme_name,
@@ -243,6 +246,7 @@ def scheme_block(judgement: StepJudgement) -> dict:
         "control_failures": [f.as_dict() for f in judgement.control_failures],
         "roles": {str(o.position): o.role for o in judgement.outcomes},
         "warnings": list(judgement.warnings),
+        "step_info": dict(judgement.step_info),
     }
 
 
@@ -550,7 +554,10 @@ def judge_step(scheme: Scheme, step: str, observations: Sequence[TubeObservation
     summary = scheme_summary(scheme)
     return StepJudgement(scheme_name=scheme.name, scheme_source=summary["source"], scheme_file=summary["file"],
                          scheme_sha256=scheme.sha256, step=st.name, outcomes=tuple(outcomes),
-                         control_failures=tuple(failures), warnings=tuple(dict.fromkeys(warnings)))
+                         control_failures=tuple(failures), warnings=tuple(dict.fromkeys(warnings)),
+                         step_info={"title": st.title, "reagent": st.reagent, "fraction": st.fraction,
+                                    "source": st.source, "reactions": list(st.reactions),
+                                    "hazards": list(st.hazards), "safety": " ".join(scheme.safety.split())})
 
 
 def judgement_counts(judgement: StepJudgement) -> dict[str, int]:
