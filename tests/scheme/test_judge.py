@@ -264,3 +264,27 @@ def test_white_residue_misnamed_grey_is_not_a_mercury_positive():
     # A spent-ammonia control (white residue, misnamed grey) is flagged.
     j = judge_step(G1, "ammonia-treatment", [light_grey, dark_grey, clear(2)], LABELS3)
     assert j.control_failures and j.outcome_for(1)["verdict"] == "inconclusive"
+
+
+def test_observation_from_the_real_measure_and_classify_outputs():
+    # Kind 2: a drawn rack of three plain tubes through the real tubes, measure and
+    # classify stages (no card: the plain sRGB assumption). Only the hand-over is
+    # checked here: the observation carries what the stages measured.
+    from tubevision import measure, tubes
+    from tubevision.classify import classify_tube
+
+    a = np.full((300, 240, 3), 235, np.uint8)
+    xs = [20, 100, 180]
+    for x in xs:
+        a[30:280, x:x + 40] = (228, 228, 226)
+    finding = tubes.tubes_from_layout(a, [(x, 30, x + 40, 280) for x in xs])
+    ms = [measure.measure_tube(a, r, correction=None, mm_per_px=0.1) for r in finding.regions]
+    cs = [classify_tube(m) for m in ms]
+    obs = [observation_from(m, c) for m, c in zip(ms, cs)]
+    for m, c, o in zip(ms, cs, obs):
+        assert o.index == m.index and o.state == c.state and o.confidence == pytest.approx(c.confidence)
+        assert o.liquid_lab == pytest.approx(tuple(m.liquid.lab))
+        assert o.turbidity == pytest.approx(m.liquid.turbidity)
+        assert o.pellet_present == m.pellet.present
+    j = judge_step(G1, "chloride-precipitation", obs, LABELS3)
+    assert len(j.outcomes) == 3

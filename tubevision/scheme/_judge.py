@@ -495,10 +495,10 @@ def judge_step(scheme: Scheme, step: str, observations: Sequence[TubeObservation
         label = labels[pos]
         if role == "control" and verdict != "positive":
             failures.append(ControlFailure(pos, label, role, "positive", verdict,
-                                           why or f"looks {verdict}"))
+                                           why or f"it shows the negative instead: {st.negative.meaning}"))
         elif role == "blank" and verdict != "negative":
             failures.append(ControlFailure(pos, label, role, "negative", verdict,
-                                           why or f"looks {verdict}"))
+                                           why or f"it shows the positive instead: {st.positive.meaning}"))
         elif role == "standard" and st.standard is not None:
             ok, why_s = _holds(st.standard.condition, obs, q)
             if ok is not True:
