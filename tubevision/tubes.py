@@ -220,9 +220,11 @@ def tubes_from_layout(pixels: np.ndarray, boxes: list[BBox]) -> TubeFinding:
 #        S_w(x) = min(P(x − w/2), P(x + w/2)) − k·max P over |x' − x| < w/6.
 #    The width w is the one whose strip-wise best responses sum highest.
 # 3. Tracks. Peaks of S_w in successive strips are linked into tracks that
-#    may lean; a gap in a track is bridged when the gap is flat (an
-#    occluder in front, such as the rack's bar) and not when it shows an
-#    edge (the round bottom of one tube above the rim of the next).
+#    may lean; a gap in a track (the rack's bar in front) is bridged unless
+#    a round bottom ends the track above it (one tube above the rim of the
+#    next). Each track is confirmed by its round bottom: wall evidence along
+#    the inward arc of a hemisphere, more than along the outward arcs that
+#    a gap between two neighbouring tubes shows.
 # 4. Ends. Rim: first row where both walls show. Round bottom: where the
 #    walls stop (the hemisphere's centre), refined on full-resolution pixels
 #    along the axis, where the outline ends.
@@ -265,6 +267,11 @@ WALL_TOLERANCE_FRACTION = 0.06
 """A wall may sit this fraction of the width off its nominal place (perspective
 makes near tubes a few per cent wider than far ones; refraction shifts the lines)."""
 
+WIDTH_SPREAD_STEPS = 1
+"""Around the best trial width, widths best·r^(2k) for |k| ≤ this are searched too
+(r = :data:`WIDTH_STEP_RATIO`, so ±8 %, and with the wall tolerance ±14 %): perspective
+up to 15° makes near tubes up to ~15 % wider than far ones (pinhole geometry)."""
+
 CENTRE_PENALTY = 0.6
 """Weight k of the central-third term in S_w: a strong line on the axis means the
 trial pair spans two tubes (wall-gap-wall in the middle), not one."""
@@ -288,11 +295,8 @@ MIN_TRACK_DENSITY = 0.45
 """Fraction of a track's strips that must carry a peak (random alignments are sparse)."""
 
 MAX_GAP_WIDTHS = 3.0
-"""Longest gap (in tube widths) a track may bridge when the gap is flat (an occluder)."""
-
-FLAT_GAP_FRACTION = 0.35
-"""A gap strip is flat when its largest horizontal gradient within ±0.75 w of the
-axis is below this fraction of the track's wall level."""
+"""Longest gap (in tube widths) a track may bridge (the rack's bar in front of the tubes),
+unless a round bottom ends the track above the gap."""
 
 ARC_MIN_EVIDENCE = 0.15
 """Smallest round-bottom evidence (saturated wall gradient on the inward arc minus the
@@ -306,6 +310,14 @@ walls, common lab glassware, from memory)."""
 MENISCUS_MIN_SCORE = 0.08
 """Smallest dip + step of the inside/beside ratio that counts as a meniscus; an empty
 tube's ratio is flat to ≈ 0.02 (sensor noise), a water meniscus dips by > 0.2."""
+
+EDGE_MARGIN_FRACTION = 0.05
+"""Rows within this fraction of the tube width of a dark backdrop band or an occluder
+are left out of the meniscus search (their inside/beside ratio is unreliable)."""
+
+MENISCUS_LOWEST_FRACTION = 0.3
+"""The meniscus is looked for down to this fraction of the width above the round
+bottom's centre; lower down, a settled solid's top would be taken for it."""
 
 BAND_SAMPLES = 37
 """Samples across a tube (over ±0.9 widths) taken from full-resolution pixels."""
@@ -438,64 +450,71 @@ def _width_modes(ws: np.ndarray, sc: np.ndarray, n: int = 4) -> list[float]:
     return modes
 
 
-@dataclass
 class _Track:
-    s: list
-    c: list
-    v: list
+    """Peaks linked so far: strips ``s``, centres ``c``, scores ``v``; predicts the
+    centre in a later strip from a line through its last 12 points."""
+
+    __slots__ = ("s", "c", "v", "_fit")
+
+    def __init__(self, s: int, c: float, v: float):
+        self.s, self.c, self.v = [s], [c], [v]
+        self._fit = (float(s), float(c), 0.0)
+
+    def add(self, s: int, c: float, v: float) -> None:
+        self.s.append(s)
+        self.c.append(c)
+        self.v.append(v)
+        if len(self.s) >= 4:
+            ss, cc = self.s[-12:], self.c[-12:]
+            sm, cm = sum(ss) / len(ss), sum(cc) / len(cc)
+            var = sum((x - sm) ** 2 for x in ss)
+            b = sum((x - sm) * (y - cm) for x, y in zip(ss, cc)) / var if var > 0 else 0.0
+            self._fit = (sm, cm, b)
+        else:
+            self._fit = (float(s), float(c), 0.0)
 
     def predict(self, s: int) -> float:
-        n = len(self.s)
-        if n >= 4:
-            ss = np.asarray(self.s[-12:], float)
-            cc = np.asarray(self.c[-12:], float)
-            sm, cm = ss.mean(), cc.mean()
-            var = float(((ss - sm) ** 2).sum())
-            b = float(((ss - sm) * (cc - cm)).sum()) / var if var > 0 else 0.0
-            return float(cm + b * (s - sm))
-        return float(self.c[-1])
+        sm, cm, b = self._fit
+        return cm + b * (s - sm)
 
 
-def _link(peaks: list, w: float, P: np.ndarray, wall_level: float) -> list:
-    """Greedy strip-to-strip linking of peaks into tracks (step 3)."""
+def _link(peaks: list, w: float, ends_round) -> list:
+    """Greedy strip-to-strip linking of peaks into tracks (step 3).
+
+    ``ends_round(strip, col)`` says whether a tube's round bottom lies just below
+    ``strip`` at ``col``; a gap is not bridged there (the next tube down starts).
+    """
     max_gap = int(np.ceil(MAX_GAP_WIDTHS * w / STRIP_PX)) + 1
-    tracks: list[_Track] = []
+    done: list[_Track] = []
+    active: list[_Track] = []
     by_strip: dict[int, list] = {}
     for s, c, v in peaks:
         by_strip.setdefault(s, []).append((c, v))
     for s in sorted(by_strip):
-        taken = set()
+        still = []
+        for t in active:
+            (still if s - t.s[-1] <= max_gap else done).append(t)
+        active = still
+        pred = np.array([t.predict(s) for t in active] + [np.inf])
         for c, v in sorted(by_strip[s], key=lambda t: -t[1]):
-            best, best_d = None, 0.35 * w
-            for ti, t in enumerate(tracks):
-                if ti in taken or s - t.s[-1] > max_gap:
-                    continue
-                d = abs(t.predict(s) - c)
-                if d < best_d:
-                    best, best_d = ti, d
+            best = None
+            if len(active):
+                d = np.abs(pred[:len(active)] - c)
+                k = int(np.argmin(d))
+                if d[k] < 0.35 * w:
+                    best = k
             if best is not None:
-                t = tracks[best]
-                gap = s - t.s[-1] - 1
-                if gap >= 2 and not _flat_gap(P, t.s[-1] + 1, s, c, w, wall_level):
+                t = active[best]
+                if s - t.s[-1] - 1 >= 2 and ends_round(t.s[-1], t.c[-1]):
                     best = None
             if best is None:
-                tracks.append(_Track([s], [c], [v]))
-                taken.add(len(tracks) - 1)
+                active.append(_Track(s, c, v))
+                pred = np.append(pred[:-1], [np.inf, np.inf])
             else:
-                tracks[best].s.append(s)
-                tracks[best].c.append(c)
-                tracks[best].v.append(v)
-                taken.add(best)
+                active[best].add(s, c, v)
+                pred[best] = np.inf   # one peak per track and strip
+    tracks = done + active
     return tracks
-
-
-def _flat_gap(P: np.ndarray, s0: int, s1: int, c: float, w: float, wall_level: float) -> bool:
-    x0, x1 = max(0, int(c - 0.75 * w)), min(P.shape[1], int(c + 0.75 * w) + 1)
-    seg = P[s0:s1, x0:x1]
-    if seg.size == 0:
-        return True
-    flat = seg.max(axis=1) < FLAT_GAP_FRACTION * wall_level
-    return bool(flat.mean() >= 0.75)
 
 
 @dataclass(frozen=True)
@@ -538,30 +557,50 @@ def _candidates(rot: np.ndarray, valid: np.ndarray) -> list[_Candidate]:
     e0 = SATURATION_NOISE_FACTOR * float(np.median(P)) + 1.0
     Pn = P / (P + e0)
     En = E / (E + e0)
-    gy = _vertical_edges(rot)
+    gray = rot.mean(axis=2)
+    gy = _vertical_edges(gray)
+    gxs = _signed_gx(gray)
     w_max = max(MIN_TUBE_WIDTH_PX + 1.0, MAX_TUBE_WIDTH_FRACTION * wd)
     ws, sc = _width_scores(Pn, w_max)
-    best: list[_Candidate] = []
-    best_total = 0.0
-    fallback: list[_Candidate] = []
+    best_w, best_total, fallback, best_cands = None, 0.0, [], []
     for w in _width_modes(ws, sc):
-        cands = _tracks_at_width(Pn, En, gy, w)
-        verified = [c for c in cands if c.verified]
-        total = sum(c.strength * c.arc for c in verified)
+        cands = _tracks_at_width(Pn, En, gy, gxs, gray, w)
+        total = sum(c.strength * c.arc for c in cands if c.verified)
         if not fallback:
             fallback = cands
         if total > best_total:
-            best, best_total = verified, total
-    return best if best else fallback
+            best_w, best_total, best_cands = w, total, cands
+    if best_w is None:
+        return fallback
+    # tubes differ in apparent width (perspective, two rows at different distances):
+    # search a band of widths round the best one and keep the best-supported track
+    # wherever several overlap
+    found: list[_Candidate] = []
+    for k in range(-WIDTH_SPREAD_STEPS, WIDTH_SPREAD_STEPS + 1):
+        w = best_w * WIDTH_STEP_RATIO ** (2 * k)
+        cands = best_cands if k == 0 else _tracks_at_width(Pn, En, gy, gxs, gray, w)
+        found.extend(c for c in cands if c.verified)
+    return _drop_overlaps(found)
 
 
-def _tracks_at_width(Pn: np.ndarray, En: np.ndarray, gy: np.ndarray, w: float) -> list[_Candidate]:
+def _tracks_at_width(Pn: np.ndarray, En: np.ndarray, gy: np.ndarray, gxs: np.ndarray,
+                     gray: np.ndarray, w: float) -> list[_Candidate]:
     """Peaks at width ``w`` linked into tracks, their ends and round-bottom evidence."""
     h, wd = En.shape
     S = _pair_score(Pn, w)
     nms = _hmax(S, int(round(0.6 * w)))
     peaks = _strip_peaks(S, nms, w)
-    tracks = _link(peaks, w, Pn, 1.0)
+    memo: dict = {}
+
+    def ends_round(strip: int, col: float) -> bool:
+        key = (strip, int(round(col)))
+        if key not in memo:
+            end = (strip + 1) * STRIP_PX
+            bottom = _bottom_row(gy, col, 0.0, w, end)
+            memo[key] = _arc_evidence(En, gray, col, 0.0, w, bottom - w / 2) >= ARC_MIN_EVIDENCE
+        return memo[key]
+
+    tracks = _link(peaks, w, ends_round)
     out = []
     min_strips = MIN_LENGTH_WIDTHS * w / STRIP_PX
     for t in tracks:
@@ -585,18 +624,24 @@ def _tracks_at_width(Pn: np.ndarray, En: np.ndarray, gy: np.ndarray, w: float) -
         top = top_est if top is None else top
         end = end_est if end is None else end
         bottom = _bottom_row(gy, a, b, w, end)
-        arc = _arc_evidence(En, a, b, w, bottom - w / 2)
+        arc = _arc_evidence(En, gray, a, b, w, bottom - w / 2)
         out.append(_Candidate(a=float(a), b=float(b), top=float(top), end=float(bottom - w / 2), w=float(w),
                               strength=float(np.sum(t.v)), verified=arc >= ARC_MIN_EVIDENCE, arc=arc))
     return _drop_overlaps(out)
 
 
-def _vertical_edges(rot: np.ndarray) -> np.ndarray:
+def _signed_gx(gray: np.ndarray) -> np.ndarray:
+    """Signed ∂/∂x of the grey level (float32 (H, W))."""
+    import cv2
+
+    return cv2.Sobel(gray, cv2.CV_32F, 1, 0, ksize=3)
+
+
+def _vertical_edges(gray: np.ndarray) -> np.ndarray:
     """|∂/∂y| of the grey level (float32 (H, W))."""
     import cv2
 
-    g = rot.mean(axis=2)
-    return np.abs(cv2.Sobel(g, cv2.CV_32F, 0, 1, ksize=3))
+    return np.abs(cv2.Sobel(gray, cv2.CV_32F, 0, 1, ksize=3))
 
 
 def _bottom_row(gy: np.ndarray, a: float, b: float, w: float, end: float) -> float:
@@ -651,33 +696,41 @@ def _strip_peaks(S: np.ndarray, nms: np.ndarray, w: float) -> list:
     return out
 
 
-def _arc_evidence(En: np.ndarray, a: float, b: float, w: float, end: float) -> float:
+def _arc_evidence(En: np.ndarray, gray: np.ndarray, a: float, b: float, w: float, centre: float) -> float:
     """Round-bottom test: wall evidence along the inward arc (a tube's hemisphere)
     minus that along the outward arcs (the neighbours' bottoms seen round a gap).
 
     The bottom of a test tube is a hemisphere of the tube's radius r (geometry):
     at depth dy below its centre the outline sits at ±r·sqrt(1 − (dy/r)²). Seen
-    between two tubes, the same outline curves away from the gap instead.
+    between two tubes, the same outline curves away from the gap instead. Only
+    rows where the backdrop beside the tube is light count (a glass edge does
+    not show against a dark backdrop band).
     """
     h, wd = En.shape
     r = w / 2
-    dys = np.linspace(0.25 * r, 0.8 * r, 6)
+    dys = np.linspace(0.2 * r, 0.85 * r, 10)
     tol = max(1, int(round(WALL_TOLERANCE_FRACTION * w)))
     offs = np.arange(-tol, tol + 1)
-    inward, outward = [], []
-    for dy in dys:
-        y = int(round(end + dy))
-        if not 0 <= y < h:
-            return 0.0
-        x = a + b * y
-        hw = r * np.sqrt(1 - (dy / r) ** 2)
-        for half, store in ((hw, inward), (2 * r - hw, outward)):
-            vals = []
-            for sgn in (-1, 1):
-                cols = np.clip(int(round(x + sgn * half)) + offs, 0, wd - 1)
-                vals.append(En[y, cols].max())
-            store.append(min(vals))
-    return float(np.mean(inward) - np.mean(outward))
+    ys = np.round(centre + dys).astype(int)
+    if ys.min() < 0 or ys.max() >= h:
+        return 0.0
+    x = a + b * ys
+    hw = r * np.sqrt(1 - (dys / r) ** 2)
+    bl = gray[ys, np.clip(np.round(x - 1.6 * r).astype(int), 0, wd - 1)]
+    br = gray[ys, np.clip(np.round(x + 1.6 * r).astype(int), 0, wd - 1)]
+    beside = np.maximum(bl, br)
+    light = beside >= LIGHT_ROW_FRACTION * max(float(beside.max()), 1e-6)
+    if light.sum() < 3:
+        return 0.0
+    res = []
+    for half in (hw, 2 * r - hw):
+        sides = []
+        for sgn in (-1, 1):
+            cols = np.clip(np.round(x + sgn * half).astype(int)[:, None] + offs[None, :], 0, wd - 1)
+            sides.append(En[ys[:, None], cols].max(axis=1))
+        res.append(np.minimum(sides[0], sides[1])[light].mean())
+    inward, outward = res
+    return float(inward - outward)
 
 
 def _first_run(rows, on, lo, hi, run, *, from_top):
@@ -694,16 +747,18 @@ def _first_run(rows, on, lo, hi, run, *, from_top):
 
 
 def _drop_overlaps(cands: list[_Candidate]) -> list[_Candidate]:
-    """Where two tracks overlap (same place, overlapping rows), keep the stronger."""
+    """Where two tracks overlap (overlapping rows, and across by more than a tenth of
+    their width: tubes in a rack stand side by side), keep the better supported (wall
+    strength × round-bottom evidence)."""
     keep: list[_Candidate] = []
-    for c in sorted(cands, key=lambda c: -c.strength):
+    for c in sorted(cands, key=lambda c: -(c.strength * max(c.arc, 1e-3))):
         clash = False
         for k in keep:
             y0, y1 = max(c.top, k.top), min(c.end, k.end)
             if y1 <= y0:
                 continue
             ym = (y0 + y1) / 2
-            if abs((c.a + c.b * ym) - (k.a + k.b * ym)) < 0.8 * max(c.w, k.w):
+            if abs((c.a + c.b * ym) - (k.a + k.b * ym)) < 0.45 * (c.w + k.w):
                 clash = True
                 break
         if not clash:
@@ -737,36 +792,64 @@ def _meniscus(inner: np.ndarray, beside: np.ndarray, flat: np.ndarray, lo: int, 
     ref = float(np.percentile(beside_l[lo:hi], 95)) if hi > lo else 0.0
     if hi - lo < 6 or ref <= 0:
         return None
-    ok = (beside_l > LIGHT_ROW_FRACTION * ref) & ~flat
+    bad = ~(beside_l > LIGHT_ROW_FRACTION * ref) | flat
+    # leave out a margin at each edge of a dark band or occluder: the inner and beside
+    # samples cross a slightly slanted edge at slightly different rows
+    m = max(2, int(round(EDGE_MARGIN_FRACTION * w_full)))
+    bad = np.convolve(bad.astype(float), np.ones(2 * m + 1), mode="same") > 0
+    ok = ~bad
     R = inner / np.maximum(beside, 1e-4)
-    Rl = R.mean(axis=1)
+    # work on the valid rows only, in order: a step or dip is judged against the
+    # nearest valid rows above and below, however far a dark band pushes them
+    vv = np.nonzero(ok)[0]
+    n = vv.size
     k = max(2, int(round(0.12 * w_full)))
-    above, na = _box_mean(R, ok, -k, 0)
-    below, nb = _box_mean(R, ok, 1, k + 1)
+    if n < 2 * k + 3:
+        return None
+    Rc = R[vv]
+    Rl = Rc.mean(axis=1)
+    cs = np.vstack([np.zeros((1, 3)), np.cumsum(Rc, axis=0)])
+    csl = np.concatenate([[0.0], np.cumsum(Rl)])
+    i = np.arange(n)
+
+    def mean3(lo_i, hi_i):
+        lo_i, hi_i = np.clip(lo_i, 0, n), np.clip(hi_i, 0, n)
+        cnt = np.maximum(hi_i - lo_i, 1)[:, None]
+        return (cs[hi_i] - cs[lo_i]) / cnt, hi_i - lo_i
+
+    def mean1(lo_i, hi_i):
+        lo_i, hi_i = np.clip(lo_i, 0, n), np.clip(hi_i, 0, n)
+        return (csl[hi_i] - csl[lo_i]) / np.maximum(hi_i - lo_i, 1), hi_i - lo_i
+
+    above, na = mean3(i - k, i)          # rows before the boundary above index i
+    below, nb = mean3(i, i + k)
     step = np.abs(below - above).mean(axis=1)
-    cen, nc = _box_mean(Rl, ok, -1, 2)
-    far_a, nfa = _box_mean(Rl, ok, -2 * k, -k // 2)
-    far_b, nfb = _box_mean(Rl, ok, k // 2 + 1, 2 * k + 1)
+    step[(na < k) | (nb < k)] = 0.0
+    cen, _ = mean1(i - 1, i + 2)
+    far_a, nfa = mean1(i - 2 * k, i - k // 2)
+    far_b, nfb = mean1(i + k // 2 + 1, i + 2 * k + 1)
     dip = np.minimum(far_a, far_b) - cen
-    enough = (na >= k / 2) & (nb >= k / 2) & (nc >= 1)
-    score = np.where(enough, np.nan_to_num(step, nan=0.0), 0.0)
-    dip_ok = (nfa >= k / 3) & (nfb >= k / 3) & (nc >= 1)
-    score = score + np.where(dip_ok, np.clip(np.nan_to_num(dip, nan=0.0), 0, None), 0.0)
-    score[:lo] = 0.0
-    score[hi:] = 0.0
+    dip[(nfa < k) | (nfb < k)] = 0.0
+    score = step + np.clip(dip, 0, None)
+    score[(vv < lo) | (vv >= hi)] = 0.0
     best = float(score.max())
     if best < MENISCUS_MIN_SCORE:
         return None
     thr = max(MENISCUS_MIN_SCORE, 0.35 * best)
-    cand = np.nonzero(score >= thr)[0]
-    v = int(cand[0])
-    # the local maximum of this first run
-    run_end = v
-    while run_end + 1 < len(score) and score[run_end + 1] >= thr:
+    first = int(np.nonzero(score >= thr)[0][0])
+    run_end = first
+    while run_end + 1 < n and score[run_end + 1] >= thr:
         run_end += 1
-    v = v + int(np.argmax(score[v:run_end + 1]))
-    is_dip = dip_ok[v] and np.nan_to_num(dip[v]) > 0.5 * np.nan_to_num(step[v])
-    return v + 1 if is_dip else v
+    j = first + int(np.argmax(score[first:run_end + 1]))
+    v = int(vv[j])
+    if dip[j] > 0.5 * step[j]:
+        return v + 1                   # just below the dark meniscus line
+    if j == 0 or vv[j] - vv[j - 1] <= 2:
+        return v                       # first row of the liquid
+    gap = slice(int(vv[j - 1]) + 1, v)
+    if flat[gap].mean() > 0.5:
+        return v                       # hidden behind an occluder: first visible liquid row
+    return int(round((vv[j - 1] + v) / 2))   # inside a dark band: its middle
 
 
 def _refine_full(pixels: np.ndarray, cand: _Candidate, A: np.ndarray, index_hint: int):
@@ -817,7 +900,7 @@ def _refine_full(pixels: np.ndarray, cand: _Candidate, A: np.ndarray, index_hint
     v_centre = v_bottom - 0.5 * w_full
     v_inner_bottom = v_bottom - WALL_FRACTION * w_full
     lo_m = int(round(v_rim + 0.25 * w_full))
-    hi_m = int(round(v_centre - 0.05 * w_full))
+    hi_m = int(round(v_centre - MENISCUS_LOWEST_FRACTION * w_full))
     v_lt = _meniscus(inner, beside, flat, lo_m, hi_m, w_full)
 
     def at(v, u=0.0):
