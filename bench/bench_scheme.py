@@ -20,7 +20,14 @@ once the studio renderer and the card stage are in (``--help``).
 A call counts as correct when it equals the truth; "inconclusive" is
 counted apart from "wrong" (an inconclusive call is safe but not correct).
 
-Usage: ``python bench/bench_scheme.py [--series N] [--seed S]``
+With ``--photos N`` it also renders N photo series per ion subset with the
+studio (``tubevision.studio``) and runs the whole pipeline on them
+(``analyze_photo`` → ``build_record`` → ``conclude``): the issue's target
+proper. Each tube's studio contents follow the same chemistry (white
+precipitate, yellow solution or precipitate, grey-black precipitate, white
+suspension, clear water).
+
+Usage: ``python bench/bench_scheme.py [--series N] [--photos N] [--seed S]``
 """
 
 from __future__ import annotations
@@ -151,9 +158,76 @@ def session(scheme, ions: set[str], rng, slips: bool, spoil_step: str | None = N
     return conclude(records), flagged
 
 
+# Studio contents for each true appearance (keys of tubevision.studio.materials.CONTENTS).
+def _studio_contents(t: dict) -> str:
+    if t["pellet"] is not None:
+        return {"white": "white-precipitate", "yellow": "yellow-precipitate", "black": "black-precipitate"}[
+            t["pellet"][0]]
+    if t["state"] == "cloudy":
+        return "white-cloud"
+    return "yellow-solution" if t["liquid"][0] == "chromate" else "water"
+
+
+def photo_session(scheme, ions: set[str], seed: int, spoil_step: str | None = None, *,
+                  size=(1344, 1008)):
+    """One sample through the scheme on rendered photos and the whole pipeline."""
+    from tubevision.analysis import AnalysisOptions, analyze_photo
+    from tubevision.image import photo_from_array
+    from tubevision.record.build import build_record
+    from tubevision.studio import SceneSpec, TubeSpec, render_scene
+
+    records, flagged = [], {}
+    for k, step in enumerate(steps_run(ions)):
+        ctrl = spoiled(step) if step == spoil_step else truth(step, set(GROUP1))
+        spec = SceneSpec(tubes=(TubeSpec(_studio_contents(ctrl), label="control"),
+                                TubeSpec(_studio_contents(truth(step, ions)), label="sample"),
+                                TubeSpec(_studio_contents(truth(step, set())), label="blank")),
+                         width_px=size[0], height_px=size[1], backdrop="hbands",
+                         scenario=f"bench: group1 {step}, sample {'+'.join(sorted(ions)) or 'none'}")
+        photo = render_scene(spec, seed=seed * 10 + k)
+        opts = AnalysisOptions(scheme="group1", step=step, labels="1=control,2=sample,3=blank", expected_tubes=3)
+        a = analyze_photo(photo_from_array(photo.upright, name=f"{step}.png"), opts, scheme=scheme)
+        flagged[step] = bool(a.judgement.control_failures)
+        records.append(build_record(a))
+    return conclude(records), flagged
+
+
+def photo_bench(scheme, subsets, n: int, seed: int) -> None:
+    t0 = time.perf_counter()
+    try:
+        import tubevision.card  # noqa: F401
+        import tubevision.studio  # noqa: F401
+    except ImportError as exc:
+        print(f"  photos: not run ({exc}); the pipeline is not complete yet")
+        return
+    calls = correct = wrong = inconc = false_flags = 0
+    for s_i, ions in enumerate(subsets):
+        for r in range(n):
+            out, flagged = photo_session(scheme, ions, seed + 1000 * s_i + r)
+            false_flags += sum(flagged.values())
+            for ion, call in out["samples"]["sample"]["calls"].items():
+                calls += 1
+                expect = "present" if ion in ions else "absent"
+                correct += call == expect
+                inconc += call == "inconclusive"
+                wrong += call not in (expect, "inconclusive")
+    print(f"  photos: calls {calls}; correct {100 * correct / calls:.2f} % (target >= 99 %), "
+          f"inconclusive {100 * inconc / calls:.2f} %, wrong {100 * wrong / calls:.2f} %; "
+          f"good controls flagged {false_flags}")
+    n_sp = n_flag = 0
+    for k, step in enumerate(STEPS):
+        for r in range(n):
+            _, flagged = photo_session(scheme, set(GROUP1), seed + 50000 + 100 * k + r, spoil_step=step)
+            n_sp += 1
+            n_flag += flagged[step]
+    print(f"  photos: spoiled controls {n_sp}; flagged {n_flag} ({100 * n_flag / n_sp:.1f} %, target 100 %); "
+          f"time {time.perf_counter() - t0:.1f} s")
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--series", type=int, default=100, help="sessions per ion subset (default 100)")
+    ap.add_argument("--photos", type=int, default=0, help="rendered photo series per ion subset (default 0)")
     ap.add_argument("--seed", type=int, default=20260504, help="random seed (default fixed)")
     a = ap.parse_args(argv)
     rng = np.random.default_rng(a.seed)  # seeded: the figures are reproducible
@@ -188,6 +262,8 @@ def main(argv=None) -> int:
             n_flag += flagged[step]
     print(f"  spoiled controls: {n_sp}; flagged {n_flag} ({100 * n_flag / n_sp:.1f} %, target 100 %)")
     print(f"  time {time.perf_counter() - t0:.1f} s")
+    if a.photos:
+        photo_bench(scheme, subsets, a.photos, a.seed)
     return 0
 
 
