@@ -96,9 +96,9 @@ def _logistic(edge_nm: float, width_nm: float) -> np.ndarray:
 SOLUTES: dict[str, tuple[tuple[float, float, float], ...]] = {
     # name: Gaussian bands (centre nm, sigma nm, peak decadic absorbance per mm at strength 1).
     # Invented, representative shapes (not measured spectra).
-    "chromate-like": ((372.0, 38.0, 0.35),),
-    "dichromate-like": ((350.0, 50.0, 0.40), (445.0, 38.0, 0.06)),
-    "thiocyanato-iron-like": ((475.0, 50.0, 0.12),),
+    "chromate-like": ((375.0, 50.0, 0.20),),
+    "dichromate-like": ((350.0, 50.0, 0.40), (445.0, 48.0, 0.70)),
+    "thiocyanato-iron-like": ((495.0, 55.0, 0.20),),
     "copper-ammine-like": ((610.0, 70.0, 0.06),),
     "nickel-aqua-like": ((395.0, 30.0, 0.06), (690.0, 60.0, 0.05)),
     "cobalt-aqua-like": ((512.0, 30.0, 0.035),),
@@ -112,9 +112,9 @@ def _solid_table() -> dict[str, np.ndarray]:
         # Invented, representative reflectance curves of settled solids (R∞, opaque layer).
         "white": 0.88 - 0.06 * np.exp(-(lam - 380.0) / 40.0),
         "yellow": 0.06 + 0.74 * _logistic(510.0, 12.0),
-        "grey-black": 0.05 + 0.01 * (lam - 380.0) / 400.0,
+        "grey-black": 0.025 + 0.008 * (lam - 380.0) / 400.0,
         "red-brown": 0.05 + 0.40 * _logistic(590.0, 25.0),
-        "pink": 0.78 - 0.50 * _gauss(535.0, 38.0),
+        "pink": 0.78 - 0.48 * _gauss(525.0, 40.0) - 0.30 * _gauss(450.0, 35.0),
         "blue-green": 0.10 + 0.45 * _gauss(500.0, 45.0),
     }
 
@@ -159,7 +159,7 @@ CONTENTS: dict[str, Contents] = {c.key: c for c in (
              solute="chromate-like", liquid_colour_name="yellow"),
     Contents("orange-solution", "orange solution, dichromate-like", solute="dichromate-like",
              liquid_colour_name="orange"),
-    Contents("red-solution", "blood-red solution, thiocyanato-iron-like band near 475 nm",
+    Contents("red-solution", "blood-red solution, thiocyanato-iron-like band near 495 nm",
              solute="thiocyanato-iron-like", liquid_colour_name="red"),
     Contents("blue-solution", "deep-blue solution, copper-ammine-like band near 610 nm",
              solute="copper-ammine-like", liquid_colour_name="blue"),
