@@ -548,7 +548,8 @@ def render_scene(spec: SceneSpec, *, seed: int) -> RenderedPhoto:
       meniscus band), ``liquid_bottom`` (last liquid row + 1 on the axis: pellet top or inner
       bottom), ``bottom_top`` (start of the round bottom), ``inner_bottom`` (row of the inside
       bottom on the axis), ``occluded_rows`` (rack bar [row0, row1) or null), ``state``,
-      ``liquid`` {lab, colour_name, turbidity} or null, ``pellet`` {present, height_mm, lab,
+      ``liquid`` {lab, colour_name, turbidity} or null, ``lab`` (the same liquid Lab, or null;
+      a shortcut), ``pellet`` {present, height_mm, lab,
       colour_name, top_row};
     * ``card``: ``kind``, ``corners_px`` (TL, TR, BR, BL of the card outline as x, y),
       ``markers``, ``patches`` (id, centre_px, nominal_srgb, lab_d65), ``size_mm`` — or null;
@@ -659,6 +660,7 @@ def _truth(spec, contents_list, geoms, lay, bars, hmat, card_truth, seed, dev) -
             "occluded_rows": None if bar is None else [row_at(g.cx, bar[0]), row_at(g.cx, bar[1]) + 1],
             "state": state,
             "liquid": liquid,
+            "lab": None if liquid is None else liquid["lab"],
             "pellet": {"present": bool(has_pellet), "height_mm": float(pellet_mm) if has_pellet else 0.0,
                        "lab": _truth_pellet(c) if has_pellet else None,
                        "colour_name": c.pellet_colour_name if has_pellet else None,
