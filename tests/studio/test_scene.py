@@ -22,11 +22,12 @@ def _ideal_scene(**kw):
     return SceneSpec(**base)
 
 
-def test_neutral_patch_through_ideal_camera_matches_design():
+@pytest.mark.parametrize("angle", [0.0, 7.0])
+def test_neutral_patch_through_ideal_camera_matches_design(angle):
     """Kind 2: a grey patch of the plain target through a colorimetric camera (CIE 1931 CMFs as
     sensitivities, D65, no noise, linear) is within 0.5 ΔE00 of its spectral design value.
     The 8-bit output (IEC 61966-2-1 encoding) limits the agreement to ~0.2 ΔE00."""
-    r = render_scene(_ideal_scene(), seed=3)
+    r = render_scene(_ideal_scene(card_angle_deg=angle), seed=3)
     img = r.upright
     for p in r.truth["card"]["patches"]:
         cx, cy = (int(round(v)) for v in p["centre_px"])
@@ -136,3 +137,24 @@ def test_bad_specs_raise_one_line_messages():
         CameraSpec(white_balance="magic")
     with pytest.raises(TubevisionInputError, match="exif_orientation"):
         render_scene(SceneSpec(exif_orientation=5), seed=0)
+
+
+@pytest.mark.parametrize("angle", [0.0, -6.0])
+def test_card_corners_are_where_the_card_is(angle):
+    """Kind 2: the plain target has a 2 mm black frame; 1 mm inside each truth corner the photo
+    is dark, 2 mm outside it the light backdrop shows; mm_per_px matches the corner spacing."""
+    spec = _ideal_scene(card_angle_deg=angle, camera=CameraSpec.ideal().with_(perspective=0.02))
+    r = render_scene(spec, seed=8)
+    card = r.truth["card"]
+    q = np.array(card["corners_px"])
+    centre = q.mean(axis=0)
+    mmpp = r.truth["mm_per_px"]
+    img = r.upright.astype(float).mean(axis=2)
+    for c in q:
+        u = (centre - c) / np.linalg.norm(centre - c)
+        x_in, y_in = c + u * (1.0 / mmpp) * np.sqrt(2)
+        x_out, y_out = c - u * (2.0 / mmpp) * np.sqrt(2)
+        assert img[int(y_in), int(x_in)] < 60
+        assert img[int(y_out), int(x_out)] > 180
+    width_mm = np.linalg.norm(q[1] - q[0]) * mmpp
+    assert width_mm == pytest.approx(card["size_mm"][0], rel=0.05)

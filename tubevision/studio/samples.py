@@ -47,8 +47,9 @@ def sample_specs() -> dict[str, tuple[SceneSpec, int, str]]:
                                               "pink-precipitate", "green-solution", "orange-solution",
                                               "pink-solution", "yellow-cloud", "white-cloud")),
             rows=2, illuminant="FL11", camera=cam.with_(sensor="nikon5100-npl"), rack_colour="blue",
+            card_angle_deg=-5.0,
             width_px=w, height_px=h, scenario="two racks, fluorescent light"),
-            103, "ten tubes in two rows, FL11, Nikon 5100 (NPL) sensor"),
+            103, "ten tubes in two rows, FL11, Nikon 5100 (NPL) sensor, card turned 5 degrees"),
         "rotated-exif6-led": (SceneSpec(
             tubes=(TubeSpec("white-cloud-settling"), TubeSpec("water"), TubeSpec("white-precipitate")),
             illuminant="LED-B3", camera=cam.with_(sensor="phone-b"), exif_orientation=6,

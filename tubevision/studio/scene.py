@@ -151,6 +151,8 @@ class SceneSpec:
     card : str — ``"auto"`` (the tool's card when ``tubevision.card`` exists, else a plain
         neutral target), ``"plain"`` or ``"none"``.
     card_side : str — ``"auto"``, ``"right"`` or ``"below"``: where the card lies.
+    card_angle_deg : float — the card turned in the scene plane, -10 to 10 degrees
+        (positive turns it clockwise as seen in the photo).
     width_px, height_px : int — size of the upright photo.
     exif_orientation : int — one of :data:`EXIF_ORIENTATIONS`.
     zoom : float — fraction of the frame the content fills, 0.5-0.95.
@@ -169,6 +171,7 @@ class SceneSpec:
     rack_colour: str = "white"
     card: str = "auto"
     card_side: str = "auto"
+    card_angle_deg: float = 0.0
     width_px: int = 2016
     height_px: int = 1512
     exif_orientation: int = 1
@@ -225,6 +228,8 @@ def _validate(spec: SceneSpec) -> list[mat.Contents]:
         raise TubevisionInputError(f"card {spec.card!r}: choose auto, plain or none")
     if spec.card_side not in ("auto", "right", "below"):
         raise TubevisionInputError(f"card_side {spec.card_side!r}: choose auto, right or below")
+    if not -10.0 <= spec.card_angle_deg <= 10.0:
+        raise TubevisionInputError(f"card_angle_deg {spec.card_angle_deg}: give -10 to 10")
     if spec.exif_orientation not in EXIF_ORIENTATIONS:
         raise TubevisionInputError(f"exif_orientation {spec.exif_orientation}: choose one of 1, 3, 6, 8")
     if not (64 <= spec.width_px <= 8192 and 64 <= spec.height_px <= 8192):
@@ -592,12 +597,24 @@ def render_scene(spec: SceneSpec, *, seed: int) -> RenderedPhoto:
     if art is not None:
         ox, oy = lay.card_origin_mm
         cw, ch = art.size_mm
-        b0, b1 = int(round(ox * ppm)), int(round((ox + cw) * ppm))
-        a0, a1 = int(round(oy * ppm)), int(round((oy + ch) * ppm))
         img, patch_spectra = card_raw(art, basis)
-        raw[a0:a1, b0:b1] = cv2.resize(img, (b1 - b0, a1 - a0), interpolation=cv2.INTER_AREA)
-        sx, sy = (b1 - b0) / cw, (a1 - a0) / ch   # px per mm of the pasted card
-        card_truth = {"art": art, "origin_px": (b0, a0), "scale": (sx, sy), "spectra": patch_spectra}
+        # scale the art to the scene (area averaging), then place it turned by card_angle_deg
+        small = cv2.resize(img, (max(1, int(round(cw * ppm))), max(1, int(round(ch * ppm)))),
+                           interpolation=cv2.INTER_AREA)
+        sx, sy = small.shape[1] / cw, small.shape[0] / ch     # px per mm of the scaled art
+        th = np.radians(spec.card_angle_deg)
+        rot = np.array([[np.cos(th), -np.sin(th)], [np.sin(th), np.cos(th)]])
+        centre = np.array([(ox + cw / 2) * ppm, (oy + ch / 2) * ppm])
+        # affine map from mm on the card (origin top-left) to scene px
+        lin = rot @ np.diag([ppm, ppm])
+        off = centre - lin @ np.array([cw / 2, ch / 2])
+        a_px = np.column_stack([lin @ np.diag([1 / sx, 1 / sy]), off])   # art px -> scene px
+        warped = cv2.warpAffine(small, a_px, (w, h), flags=cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT)
+        mask = cv2.warpAffine(np.ones(small.shape[:2], np.float32), a_px, (w, h), flags=cv2.INTER_LINEAR,
+                              borderMode=cv2.BORDER_CONSTANT)
+        raw *= (1.0 - mask)[..., None]
+        raw += warped
+        card_truth = {"art": art, "mm_to_px": np.column_stack([lin, off]), "spectra": patch_spectra}
 
     # perspective: the phone is not held square
     src = np.array([[0, 0], [w, 0], [w, h], [0, h]], np.float64)
@@ -671,11 +688,11 @@ def _truth(spec, contents_list, geoms, lay, bars, hmat, card_truth, seed, dev) -
     mm_per_px = None
     if card_truth is not None:
         art = card_truth["art"]
-        (b0, a0), (sx, sy) = card_truth["origin_px"], card_truth["scale"]
+        aff = card_truth["mm_to_px"]
         cw, ch = art.size_mm
 
         def card_pt(xm, ym):
-            return _apply_h(hmat, np.array([[b0 + xm * sx, a0 + ym * sy]]))[0]
+            return _apply_h(hmat, (aff @ np.array([xm, ym, 1.0]))[None, :])[0]
 
         corners = [card_pt(0, 0), card_pt(cw, 0), card_pt(cw, ch), card_pt(0, ch)]
         c_mid = card_pt(cw / 2, ch / 2)
