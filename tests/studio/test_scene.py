@@ -158,3 +158,14 @@ def test_card_corners_are_where_the_card_is(angle):
         assert img[int(y_out), int(x_out)] > 180
     width_mm = np.linalg.norm(q[1] - q[0]) * mmpp
     assert width_mm == pytest.approx(card["size_mm"][0], rel=0.05)
+
+
+def test_light_gradient_brightens_one_side():
+    """Kind 2: a +20 % left→right light gradient makes the right of the backdrop brighter
+    in linear light by about that much (ideal camera, so the photo is linear in light)."""
+    from tubevision.colorimetry import srgb_to_linear
+
+    spec = _ideal_scene(card="none", light_gradient=(0.2, 0.0), backdrop="plain")
+    img = srgb_to_linear(render_scene(spec, seed=0).upright.astype(float) / 255.0)
+    left, right = img[5:40, 5:25, 1].mean(), img[5:40, -25:-5, 1].mean()
+    assert right / left == pytest.approx(1.1 / 0.9, rel=0.03)

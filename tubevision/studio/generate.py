@@ -118,6 +118,8 @@ def random_scene(rng: np.random.Generator, *, n_tubes: tuple[int, int] = (1, 12)
                      exif_orientation=int(_pick(rng, orientations)), width_px=width_px, height_px=height_px,
                      zoom=float(np.round(rng.uniform(0.7, 0.9), 3)),
                      card_angle_deg=float(np.round(rng.uniform(-6.0, 6.0), 2)),
+                     light_gradient=(float(np.round(rng.uniform(-0.12, 0.12), 3)),
+                                     float(np.round(rng.uniform(-0.08, 0.08), 3))),
                      specular=float(np.round(rng.uniform(0.4, 1.3), 3)), scenario="random scene (invented)")
 
 

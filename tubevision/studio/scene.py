@@ -36,6 +36,7 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
+from ..backdrop import BAND_WIDTH_MM
 from ..errors import TubevisionInputError
 from . import materials as mat
 from .camera import CameraSpec, develop, raw_basis
@@ -145,7 +146,10 @@ class SceneSpec:
     illuminant : str — see :func:`tubevision.studio.spectra.illuminant_spd`.
     camera : CameraSpec.
     backdrop : str — one of :data:`BACKDROPS`.
-    band_mm : float — band width of a banded backdrop (mm).
+    band_mm : float — band width of a banded backdrop (mm); default the printable backdrop's
+        (:data:`tubevision.backdrop.BAND_WIDTH_MM`).
+    light_gradient : (float, float) — relative change of the illumination across the whole
+        frame, left→right and top→bottom (e.g. 0.1 = 10 % brighter on the right); 0 = even light.
     rack : bool — draw the rack (front bar, posts, base).
     rack_colour : str — key of :data:`RACK_MATERIALS`.
     card : str — ``"auto"`` (the tool's card when ``tubevision.card`` exists, else a plain
@@ -166,7 +170,7 @@ class SceneSpec:
     illuminant: str = "D65"
     camera: CameraSpec = field(default_factory=CameraSpec)
     backdrop: str = "plain"
-    band_mm: float = 4.0
+    band_mm: float = BAND_WIDTH_MM
     rack: bool = True
     rack_colour: str = "white"
     card: str = "auto"
@@ -179,6 +183,7 @@ class SceneSpec:
     tube_diameter_mm: float = 16.0
     tube_length_mm: float = 100.0
     specular: float = 1.0
+    light_gradient: tuple[float, float] = (0.0, 0.0)
     scenario: str = ""
 
     def with_(self, **changes) -> "SceneSpec":
@@ -238,6 +243,8 @@ def _validate(spec: SceneSpec) -> list[mat.Contents]:
         raise TubevisionInputError(f"zoom {spec.zoom}: give 0.5-0.95")
     if not (8.0 <= spec.tube_diameter_mm <= 30.0 and 60.0 <= spec.tube_length_mm <= 200.0):
         raise TubevisionInputError("tube size: give a diameter of 8-30 mm and a length of 60-200 mm")
+    if len(spec.light_gradient) != 2 or max(abs(float(v)) for v in spec.light_gradient) > 0.5:
+        raise TubevisionInputError(f"light_gradient {spec.light_gradient}: give two values in -0.5..0.5")
     if spec.rack_colour not in RACK_MATERIALS:
         raise TubevisionInputError(f"rack_colour {spec.rack_colour!r}: choose one of {', '.join(RACK_MATERIALS)}")
     if not 1.0 <= spec.band_mm <= 20.0:
@@ -616,6 +623,12 @@ def render_scene(spec: SceneSpec, *, seed: int) -> RenderedPhoto:
         raw += warped
         card_truth = {"art": art, "mm_to_px": np.column_stack([lin, off]), "spectra": patch_spectra}
 
+    gx, gy = (float(v) for v in spec.light_gradient)
+    if gx or gy:
+        col = (1.0 + gx * ((np.arange(w) + 0.5) / w - 0.5)).astype(np.float32)
+        row = (gy * ((np.arange(h) + 0.5) / h - 0.5)).astype(np.float32)
+        raw *= (col[None, :] + row[:, None])[..., None]
+
     # perspective: the phone is not held square
     src = np.array([[0, 0], [w, 0], [w, h], [0, h]], np.float64)
     jit = rng.uniform(-1.0, 1.0, (4, 2)) * cam.perspective * w
@@ -723,6 +736,8 @@ def _truth(spec, contents_list, geoms, lay, bars, hmat, card_truth, seed, dev) -
             "illuminant": spec.illuminant, "sensor": cam.sensor, "seed": int(seed),
             "exif_orientation": spec.exif_orientation, "backdrop": spec.backdrop, "band_mm": spec.band_mm,
             "rack": spec.rack, "rows": spec.rows, "scenario": spec.scenario,
+            "light_gradient": [float(v) for v in spec.light_gradient],
+            "card_angle_deg": float(spec.card_angle_deg),
             "camera": {k: getattr(cam, k) for k in cam.__dataclass_fields__},
             "wb_gains": dev["wb_gains"],
             "homography": [[float(v) for v in r] for r in hmat],
