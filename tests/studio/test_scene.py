@@ -112,6 +112,12 @@ def test_exif_orientation_round_trip(tmp_path, tag, ext):
     assert photo.pixels.shape[:2] == (240, 320)
     assert np.array_equal(photo.pixels, r.upright)
     assert (tmp_path / "p.truth.json").exists()
+    # independent oracle: Pillow's ImageOps.exif_transpose reads the tag and turns the image
+    from PIL import Image, ImageOps
+
+    with Image.open(path) as im:
+        assert im.getexif().get(0x0112) == tag
+        assert np.array_equal(np.asarray(ImageOps.exif_transpose(im).convert("RGB")), r.upright)
     if tag in (6, 8):
         assert r.pixels.shape[:2] == (320, 240)
 

@@ -77,10 +77,9 @@ def _plain_target(dpi: float) -> CardArt:
     img[:, -f:] = 0
     patches = []
     for k, v in enumerate((243, 200, 160, 122, 85, 52)):
-        cx, cy, s = 10.0 + k * 14.0 + 0.0, 30.0, 12.0
-        cx += 0.0
-        patches.append(CardPatch(f"N{k + 1}", (cx + 3.0, cy), (s, s), (v / 255.0,) * 3))
-        x0, y0 = int(round((cx + 3.0 - s / 2) * ppm)), int(round((cy - s / 2) * ppm))
+        cx, cy, s = 13.0 + k * 14.0, 30.0, 12.0
+        patches.append(CardPatch(f"N{k + 1}", (cx, cy), (s, s), (v / 255.0,) * 3))
+        x0, y0 = int(round((cx - s / 2) * ppm)), int(round((cy - s / 2) * ppm))
         img[y0:y0 + int(round(s * ppm)), x0:x0 + int(round(s * ppm))] = v
     return CardArt("plain", (w_mm, h_mm), img, dpi, (), tuple(patches))
 

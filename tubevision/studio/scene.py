@@ -31,7 +31,6 @@ References
 
 from __future__ import annotations
 
-import logging
 from dataclasses import dataclass, field, replace
 
 import numpy as np
@@ -43,8 +42,6 @@ from .camera import CameraSpec, develop, raw_basis
 from .spectra import WAVELENGTHS_NM, object_lab_d65
 
 __all__ = ["TubeSpec", "SceneSpec", "RenderedPhoto", "render_scene", "BACKDROPS", "EXIF_ORIENTATIONS"]
-
-_log = logging.getLogger(__name__)
 
 BACKDROPS = ("plain", "hbands", "vbands")
 """Backdrop kinds: plain light paper, dark horizontal bands, dark vertical bands."""
@@ -109,8 +106,6 @@ RACK_MATERIALS = {
 }
 """Rack plastics, reflectance (invented, representative polypropylene colours)."""
 
-_PLAIN_CARD_MM = (90.0, 60.0)
-_PLAIN_CARD_GREYS = (243, 200, 160, 122, 85, 52)
 
 
 @dataclass(frozen=True)
