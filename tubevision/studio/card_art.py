@@ -64,6 +64,15 @@ class CardArt:
     markers: tuple[tuple[int, tuple[tuple[float, float], ...]], ...]
     patches: tuple[CardPatch, ...]
 
+    @property
+    def sha256(self) -> str:
+        """Fingerprint of the art and its patch table (tells when the card design changed)."""
+        import hashlib
+
+        h = hashlib.sha256(self.image.tobytes())
+        h.update(repr((self.kind, self.size_mm, self.markers, self.patches)).encode())
+        return h.hexdigest()
+
 
 def _plain_target(dpi: float) -> CardArt:
     """Plain neutral target: 90 × 60 mm white card, 2 mm black frame, six 12 mm grey steps."""

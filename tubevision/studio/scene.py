@@ -708,7 +708,7 @@ def _truth(spec, contents_list, geoms, lay, bars, hmat, card_truth, seed, dev) -
         dy = card_pt(cw / 2, ch / 2 + 1.0) - c_mid
         mm_per_px = float(1.0 / np.sqrt(abs(dx[0] * dy[1] - dx[1] * dy[0])))
         card = {
-            "kind": art.kind, "size_mm": list(art.size_mm),
+            "kind": art.kind, "size_mm": list(art.size_mm), "art_sha256": art.sha256,
             "corners_px": [[float(v) for v in q] for q in corners],
             "markers": [{"id": int(mid), "corners_px": [[float(v) for v in card_pt(*q)] for q in cs]}
                         for mid, cs in art.markers],
