@@ -13,6 +13,11 @@ from PIL import Image
 from tubevision.cli import main
 
 
+def _write(path, data: bytes):
+    path.write_bytes(data)
+    return path
+
+
 def _err_line(capsys) -> str:
     err = capsys.readouterr().err.strip().splitlines()
     assert err, "expected a message on stderr"
@@ -32,8 +37,8 @@ def plain_photo(tmp_path):
     [
         (lambda d: d / "missing.jpg", "no such file"),
         (lambda d: d, "is a folder"),
-        (lambda d: (d / "z.jpg").write_bytes(b"") or d / "z.jpg", "empty"),
-        (lambda d: (d / "t.jpg").write_text("hello") or d / "t.jpg", "not an image"),
+        (lambda d: _write(d / "z.jpg", b""), "empty"),
+        (lambda d: _write(d / "t.jpg", b"hello"), "not an image"),
     ],
 )
 def test_bad_photo_exits_2_and_writes_nothing(tmp_path, capsys, make, match):
