@@ -98,6 +98,7 @@ from __future__ import annotations
 
 import logging
 import math
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -157,7 +158,7 @@ BAND_EDGE_SKIP_FRACTION = 0.2
 OCCLUDER_RUN_FACTOR = 2.5
 """A dark run longer than this × the median dark-band height is an occluder, not a band."""
 
-BOOTSTRAP_N = 200
+BOOTSTRAP_N = 60
 """Bootstrap resamples for the turbidity sd (enough for a 10 % precise sd; common practice)."""
 
 BOOTSTRAP_SEED = 20260
@@ -642,8 +643,10 @@ def _turbidity(inner_y, inner_rgb, good, use_light, use_dark, beside_y, beside_r
                air=None):
     """τ and its sd (module docstring)."""
     ok = ~highlight
-    row_y = np.array([np.median(inner_y[r][ok[r]]) if ok[r].any() else np.nan
-                      for r in range(inner_y.shape[0])])
+    with warnings.catch_warnings():  # all-NaN rows (all highlight) give NaN, on purpose
+        warnings.simplefilter("ignore", RuntimeWarning)
+        row_y = np.nanmedian(np.where(ok, inner_y, np.nan), axis=1) if ok.any() else \
+            np.full(inner_y.shape[0], np.nan)
     fin = np.isfinite(row_y)
     if banded and (use_dark & fin).sum() >= 3 and (use_light & fin).sum() >= 3:
         tl, td = row_y[use_light & fin], row_y[use_dark & fin]
@@ -662,7 +665,10 @@ def _turbidity(inner_y, inner_rgb, good, use_light, use_dark, beside_y, beside_r
     rows = use_light & fin
     if rows.sum() < 3:
         return dict(value=0.0, raw=0.0, sd=float("nan"), ratio=1.0, method="plain-veil")
-    row_rgb = np.array([np.median(inner_rgb[r][ok[r]], axis=0) for r in np.flatnonzero(rows)])
+    sel = np.flatnonzero(rows)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        row_rgb = np.nanmedian(np.where(ok[sel][..., None], inner_rgb[sel], np.nan), axis=1)
     b_rgb = beside_rgb[rows]
 
     q_clear = np.asarray(air) if air is not None else np.full(3, Q_CLEAR_PLAIN)
