@@ -9,7 +9,7 @@ from PIL import Image
 from tubevision.card import (card_layout, find_card, fit_card_correction, load_card_reference,
                              parse_cgats, render_card)
 from tubevision.card.detect import CardDetection
-from tubevision.card.fit import apply_card_correction, expand_rgb
+from tubevision.card.fit import apply_card_correction, apply_tone_curves, expand_rgb
 from tubevision.card.printing import write_card
 from tubevision.card.reference import nominal_cgats_text
 from tubevision.colorimetry import delta_e00, lab_to_xyz, xyz_to_lab
@@ -125,9 +125,33 @@ def test_auto_choice_reports_candidates_and_residuals():
     rgb = np.clip(xyz @ np.linalg.inv(np.array([[0.6, 0.3, 0.1], [0.25, 0.7, 0.05], [0.02, 0.1, 0.9]])).T,
                   0, None) ** 1.1  # a mild non-linearity the matrix cannot follow
     corr = fit_card_correction(_synthetic_detection(rgb), ref)
-    assert set(corr.candidates) == {"matrix", "root-polynomial-2", "root-polynomial-3"}
+    plain = {"matrix", "root-polynomial-2", "root-polynomial-3"}
+    assert set(corr.candidates) == plain | {"ramp-tone+" + m for m in plain}
     assert corr.loo_de00_median == pytest.approx(min(corr.candidates.values()), abs=0.06)
     assert len(corr.residual_de00) == len(ref.ids)
+
+
+def test_ramp_tone_curves_undo_a_per_channel_tone_curve():
+    # A phone-like camera: a linear transform of XYZ, then a different power-law tone
+    # curve per channel (after white balance). No matrix can undo that; curves read off
+    # the neutral ramp can, and leave-one-out must prefer them.
+    ref = load_card_reference()
+    xyz = ref.xyz_d65()
+    m_true = np.array([[0.6, 0.3, 0.1], [0.25, 0.7, 0.05], [0.02, 0.1, 0.9]])
+    lin = np.clip(xyz @ np.linalg.inv(m_true).T, 1e-4, None)
+    rgb = np.stack([lin[:, 0] ** 0.8, lin[:, 1] ** 0.7, lin[:, 2] ** 0.9], axis=1)
+    corr = fit_card_correction(_synthetic_detection(rgb), ref)
+    assert corr.method.startswith("ramp-tone+")
+    assert corr.candidates[corr.method] < 0.5 * corr.candidates["matrix"]
+    lab = xyz_to_lab(np.clip(apply_card_correction(corr, rgb), 1e-6, None))
+    assert np.median(delta_e00(lab, ref.lab_d65())) < 0.5
+    # the curves are monotone and map the ramp onto its reference luminance
+    lay = card_layout()
+    neutral = [k for k, p in enumerate(lay.patches) if p.neutral]
+    y = apply_tone_curves(corr.tone, rgb[neutral])
+    assert np.allclose(y, xyz[neutral, 1:2], rtol=1e-6)
+    ramp = apply_tone_curves(corr.tone, np.linspace(0.001, 1.5, 200)[:, None].repeat(3, axis=1))
+    assert np.all(np.diff(ramp, axis=0) > 0)
 
 
 def test_nominal_reference_round_trips_and_adapts_to_d65():
