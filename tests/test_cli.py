@@ -93,3 +93,32 @@ def test_help_starts_without_heavy_imports():
 def test_module_entry_point_runs():
     out = subprocess.run([sys.executable, "-m", "tubevision", "--version"], capture_output=True, text=True)
     assert out.returncode == 0 and "tubevision 0.1.0" in out.stdout
+
+
+def test_backdrop_is_written_at_true_size_with_its_bands(tmp_path, capsys):
+    out = tmp_path / "backdrop.png"
+    assert main(["backdrop", "--out", str(out), "--size", "200x150", "--dpi", "127"]) == 0
+    with Image.open(out) as im:
+        dpi = im.info["dpi"]
+        size = im.size
+        arr = np.asarray(im.convert("L"))
+    # 127 dpi = 5 dots per mm (25.4 mm per inch): the sheet is 1000 x 750 dots
+    assert size == (1000, 750) and dpi[0] == pytest.approx(127, abs=0.01)
+    # light and dark bands alternate down the sheet, each 4 mm = 20 dots (tubevision.backdrop)
+    column = arr[:, 500].astype(int)
+    edges = np.flatnonzero(np.diff(column > 128))
+    assert len(edges) > 10
+    assert np.median(np.diff(edges)) == pytest.approx(20, abs=1)
+    # no silent overwrite, and a clear one-line error for a bad size
+    assert main(["backdrop", "--out", str(out)]) == 2
+    assert "already exists" in _err_line(capsys)
+    assert main(["backdrop", "--out", str(tmp_path / "b.png"), "--size", "huge"]) == 2
+    assert "--size" in _err_line(capsys)
+    assert not (tmp_path / "b.png").exists()
+
+
+def test_schemes_lists_the_built_in_group_one_scheme(capsys):
+    assert main(["schemes"]) == 0
+    text = capsys.readouterr().out
+    assert "group1" in text and "chloride-precipitation" in text and "chromate-test" in text
+    assert main(["schemes", "no-such-scheme"]) == 2

@@ -78,6 +78,19 @@ def _build_parser() -> argparse.ArgumentParser:
     k.add_argument("--dpi", type=int, default=300, help="resolution (default 300)")
     k.add_argument("--overwrite", action="store_true", help="replace existing files")
 
+    b = sub.add_parser("backdrop", help="write the printable banded backdrop that turbidity reads best against")
+    b.add_argument("--out", required=True, metavar="FILE", help="backdrop.png or backdrop.pdf")
+    b.add_argument("--size", default="A4", metavar="SIZE",
+                   help="A4, A3, A4-landscape, A3-landscape or WIDTHxHEIGHT in mm (default A4)")
+    b.add_argument("--dpi", type=int, default=300, help="resolution (default 300)")
+    b.add_argument("--overwrite", action="store_true", help="replace an existing file")
+
+    s = sub.add_parser("schemes", help="list the built-in test schemes and their steps")
+    s.add_argument("name", nargs="?", metavar="NAME_OR_FILE", help="show one scheme's steps and notes")
+
+    sub.add_parser("train", add_help=False, help="build training data, retrain and evaluate the state "
+                   "classifier (tubevision train --help)").add_argument("rest", nargs=argparse.REMAINDER)
+
     d = sub.add_parser("demo", help="render a sample photo of an invented scenario and analyse it")
     d.add_argument("--out", default="tubevision-demo", help="output folder (default: tubevision-demo)")
     d.add_argument("--overwrite", action="store_true", help="replace an existing demo folder")
@@ -222,6 +235,78 @@ def _cmd_card(args) -> int:
     return 0
 
 
+PAPER_MM = {"A4": (210.0, 297.0), "A3": (297.0, 420.0)}
+"""ISO 216 paper sizes (mm), portrait."""
+
+
+def _paper_size(text: str) -> tuple[float, float]:
+    key = text.strip()
+    base = key.upper().removesuffix("-LANDSCAPE")
+    if base in PAPER_MM:
+        w, h = PAPER_MM[base]
+        return (h, w) if key.upper().endswith("-LANDSCAPE") else (w, h)
+    parts = key.lower().split("x")
+    try:
+        w, h = (float(v) for v in parts)
+    except ValueError:
+        raise TubevisionInputError(f"--size {text!r}: expected A4, A3, A4-landscape, A3-landscape "
+                                   "or WIDTHxHEIGHT in mm, e.g. 250x180") from None
+    if not (20 <= w <= 1500 and 20 <= h <= 1500):
+        raise TubevisionInputError(f"--size {text!r}: each side must be 20 to 1500 mm")
+    return w, h
+
+
+def _cmd_backdrop(args) -> int:
+    import io
+
+    from PIL import Image
+
+    from .backdrop import BAND_WIDTH_MM, render_backdrop
+    from .record.write import atomic_write_bytes
+
+    out = Path(args.out)
+    ext = out.suffix.lower()
+    if ext not in (".png", ".pdf"):
+        raise TubevisionInputError(f"backdrop --out {out}: write a .png or a .pdf file")
+    if not 72 <= args.dpi <= 1200:
+        raise TubevisionInputError(f"--dpi: expected 72 to 1200, got {args.dpi}")
+    if out.exists() and not args.overwrite:
+        raise TubevisionInputError(f"{out}: already exists; pass --overwrite to replace it")
+    w_mm, h_mm = _paper_size(args.size)
+    im = Image.fromarray(render_backdrop(w_mm, h_mm, args.dpi))
+    buf = io.BytesIO()
+    if ext == ".png":
+        im.save(buf, "PNG", dpi=(args.dpi, args.dpi))
+    else:
+        im.save(buf, "PDF", resolution=float(args.dpi), title="tubevision banded backdrop")
+    atomic_write_bytes(out, buf.getvalue(), overwrite=args.overwrite)
+    print(f"wrote {out} ({w_mm:g} x {h_mm:g} mm, bands {BAND_WIDTH_MM:g} mm)", file=sys.stderr)
+    print("Print at 100 % (no scaling) on matte paper; set it up behind the rack with the bands "
+          "horizontal.", file=sys.stderr)
+    return 0
+
+
+def _cmd_schemes(args) -> int:
+    from . import scheme as scheme_mod
+
+    names = [args.name] if args.name else list(scheme_mod.builtin_schemes())
+    for name in names:
+        sch = scheme_mod.load_scheme(name)
+        print(f"{sch.name}: {sch.title}")
+        print(f"  analytes: {', '.join(sch.analytes)}")
+        print(f"  steps: {', '.join(scheme_mod.step_names(sch))}")
+        if args.name and sch.notes:
+            print()
+            print(sch.notes.strip())
+    return 0
+
+
+def _cmd_train(args) -> int:
+    from .classify.train import main as train_main
+
+    return int(train_main(list(args.rest)) or 0)
+
+
 def _cmd_demo(args) -> int:
     from .demo import run_demo
 
@@ -236,6 +321,8 @@ def main(argv: list[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     parser = _build_parser()
     try:
+        if argv[:1] == ["train"]:  # its own parser (tubevision.classify.train) takes every option
+            return _cmd_train(argparse.Namespace(rest=argv[1:]))
         args = parser.parse_args(argv)
         logging.basicConfig(level=logging.DEBUG if args.verbose else logging.WARNING,
                             format="%(name)s: %(message)s", stream=sys.stderr)
@@ -254,6 +341,12 @@ def main(argv: list[str] | None = None) -> int:
             return _cmd_verify(args)
         if args.command == "archive":
             return _cmd_archive(args)
+        if args.command == "backdrop":
+            return _cmd_backdrop(args)
+        if args.command == "schemes":
+            return _cmd_schemes(args)
+        if args.command == "train":
+            return _cmd_train(args)
         raise TubevisionInputError(f"unknown command {args.command}")  # pragma: no cover
     except TubevisionInputError as exc:
         print(f"tubevision: error: {exc}", file=sys.stderr)
