@@ -385,19 +385,34 @@ def to_unit_float(pixels: np.ndarray) -> np.ndarray:
     return pixels.astype(np.float32) / np.float32(np.iinfo(pixels.dtype).max)
 
 
-def reduced_copy(pixels: np.ndarray, *, max_side: int) -> tuple[np.ndarray, float]:
-    """A copy whose longer side is at most ``max_side``, by area averaging.
+REDUCE_SLACK = 1.02
+"""A reduced copy may be this much longer or shorter than asked: area averaging by an exact factor 2
+is several times faster in OpenCV than by an arbitrary factor (measured in
+``bench/bench_speed.py``), so a copy within 2 % of the size asked is kept as it is."""
 
-    Returns the reduced uint8 copy and the scale factor (full px per reduced px).
+
+def reduced_copy(pixels: np.ndarray, *, max_side: int) -> tuple[np.ndarray, float]:
+    """A copy whose longer side is at most about ``max_side``, by area averaging.
+
+    The photo is halved (2 × 2 area mean) while the half is no shorter than ``max_side``
+    (within :data:`REDUCE_SLACK`), then area-averaged to ``max_side`` unless it is already
+    within that slack of it. Returns the reduced uint8 copy and the scale factor (full px per reduced px).
     Finding runs on this copy; measuring touches full-resolution pixels.
     """
     import cv2
 
     h, w = pixels.shape[:2]
-    scale = max(h, w) / float(max_side)
     src = pixels if pixels.dtype == np.uint8 else (pixels >> 8).astype(np.uint8)
-    if scale <= 1.0:
+    if max(h, w) <= max_side:
         return src.copy(), 1.0
-    size = (max(1, round(w / scale)), max(1, round(h / scale)))
-    small = cv2.resize(src, size, interpolation=cv2.INTER_AREA)
-    return small, (w / size[0] + h / size[1]) / 2.0
+    small = src
+    while max(small.shape[:2]) // 2 >= max_side / REDUCE_SLACK and min(small.shape[:2]) >= 2:
+        hh, ww = small.shape[:2]
+        small = cv2.resize(small[: hh - hh % 2, : ww - ww % 2], (ww // 2, hh // 2), interpolation=cv2.INTER_AREA)
+    if max(small.shape[:2]) > REDUCE_SLACK * max_side:
+        scale = max(h, w) / float(max_side)
+        size = (max(1, round(w / scale)), max(1, round(h / scale)))
+        small = cv2.resize(small, size, interpolation=cv2.INTER_AREA)
+    elif small is src:
+        small = src.copy()
+    return small, (w / small.shape[1] + h / small.shape[0]) / 2.0

@@ -37,6 +37,11 @@ FIND_MAX_SIDE_PX = 2000
 """Longer side of the copy the markers are searched on: a card filling 3 % of a 12 MP frame
 keeps its 14 mm markers about 40 px wide there, ample for 4×4 codes (our measurement on
 studio renders)."""
+FIRST_TRY_MAX_SIDE_PX = 1000
+"""Longer side (px) of the first, quick look for the markers; markers of a card filling
+≳ 10 % of the frame's width are then ≳ 15 px wide, enough for a 4×4 ArUco code with its
+border (6 cells) at ≥ 2.5 px per cell (our rule). Fewer markers → the full search."""
+
 MIN_MARKERS = 2
 """Markers needed for a pose: two give eight corners, enough for a homography (8 unknowns)."""
 PATCH_INNER_FRACTION = 0.6
@@ -132,18 +137,23 @@ def find_card(pixels: np.ndarray) -> CardDetection | CardNotFound:
     import cv2
 
     lay = card_layout()
-    small, scale = reduced_copy(pixels, max_side=FIND_MAX_SIDE_PX)
-    grey = cv2.cvtColor(small, cv2.COLOR_RGB2GRAY)
-    corners, ids = _detect_markers(grey)
     known = {m.id: np.array(m.corners_mm) for m in lay.markers}
-    src, dst, seen = [], [], []
-    if ids is not None:
-        for c, i in zip(corners, ids.ravel()):
-            i = int(i)
-            if i in known and i not in seen:
-                seen.append(i)
-                src.append(known[i])
-                dst.append(c.reshape(4, 2))
+    # coarse to fine: a card that fills a good part of the frame shows every marker on a
+    # small copy already; a small or partly hidden one is looked for again at full size
+    for max_side in (FIRST_TRY_MAX_SIDE_PX, FIND_MAX_SIDE_PX):
+        small, scale = reduced_copy(pixels, max_side=max_side)
+        grey = cv2.cvtColor(small, cv2.COLOR_RGB2GRAY)
+        corners, ids = _detect_markers(grey)
+        src, dst, seen = [], [], []
+        if ids is not None:
+            for c, i in zip(corners, ids.ravel()):
+                i = int(i)
+                if i in known and i not in seen:
+                    seen.append(i)
+                    src.append(known[i])
+                    dst.append(c.reshape(4, 2))
+        if len(seen) == len(known) or max(pixels.shape[:2]) <= max_side:
+            break
     if len(seen) < MIN_MARKERS:
         return CardNotFound(f"{len(seen)} of the card's {len(known)} markers seen, "
                             f"{MIN_MARKERS} needed")
