@@ -91,6 +91,27 @@ def test_detection_tilted_small_and_two_markers_hidden():
     assert any("not seen" in w for w in det.warnings)
 
 
+def test_small_card_in_a_12_megapixel_frame_tilted_30_degrees():
+    # issue: the card must be found filling as little as 3 % of the frame, tilted up to 30°
+    fh, fw = 3024, 4032
+    ppm = float(np.sqrt(0.03 * fh * fw / (150.0 * 100.0)))  # card area = 3 % of the frame
+    img, hmat, dpi = _warp(card_px_per_mm=ppm, angle_deg=30.0, tilt=0.08, frame=(fh, fw))
+    det = find_card(img)
+    assert det, getattr(det, "reason", "")
+    assert len(det.marker_ids) == len(card_layout().markers)
+    # true scale at the card's centre: 1 / sqrt|det J| of the mm → px map there
+    h_mm = hmat @ np.diag([ppm, ppm, 1.0])
+
+    def px(x, y):
+        v = h_mm @ np.array([x, y, 1.0])
+        return v[:2] / v[2]
+
+    c, dx, dy = px(75, 50), px(76, 50) - px(75, 50), px(75, 51) - px(75, 50)
+    truth = 1.0 / np.sqrt(abs(dx[0] * dy[1] - dx[1] * dy[0]))
+    assert det.mm_per_px == pytest.approx(truth, rel=0.01)
+    assert det.patch_ok.sum() >= 30
+
+
 def test_no_card_is_a_value_not_an_error():
     det = find_card(np.full((300, 400, 3), 200, np.uint8))
     assert not det and "markers" in det.reason
