@@ -113,6 +113,7 @@ __all__ = [
     "PelletMeasurement",
     "TubeMeasurement",
     "measure_tube",
+    "mm_per_px_at",
     "photo_quality",
 ]
 
@@ -158,12 +159,6 @@ BAND_EDGE_SKIP_FRACTION = 0.2
 OCCLUDER_RUN_FACTOR = 2.5
 """A dark run longer than this × the median dark-band height is an occluder, not a band."""
 
-BOOTSTRAP_N = 60
-"""Bootstrap resamples for the turbidity sd (enough for a 10 % precise sd; common practice)."""
-
-BOOTSTRAP_SEED = 20260
-"""Seed for the turbidity bootstrap, so results are reproducible."""
-
 TURBIDITY_SD_FLOOR = 0.002
 """Smallest turbidity sd reported: one 8-bit code step at the light level changes τ by
 ~0.01, and its uniform quantisation sd (1/sqrt(12)) over ≥ 10 rows is ~0.002."""
@@ -177,10 +172,39 @@ plain backdrop when no empty glass above the liquid is visible to measure it (th
 cylinder of liquid relays the backdrop behind it; glass losses of a few percent are
 neglected)."""
 
-PELLET_MIN_CONTRAST_DE00 = 10.0
+PELLET_MIN_CONTRAST_DE00 = 8.0
 """A settled solid must differ from the liquid above by at least this CIEDE2000 (a
 difference plainly visible side by side; ΔE00 ≈ 1 is a just-noticeable difference,
 common practice)."""
+
+PELLET_MIN_OPACITY = 0.35
+"""A row belongs to a settled solid only when its apparent absorbance −ln(I/B) (per channel,
+I through the tube, B the backdrop beside it in the same row) departs by at least this from
+what the liquid above would give over that row's chord (Beer–Lambert: absorbance ∝ path,
+IUPAC Gold Book "Beer–Lambert law"). A liquid — coloured or cloudy — only scales its own
+absorbance with the path; an opaque layer shows its own colour whatever lies behind it.
+0.35 is a 30 % change of transmitted light (chosen: glass-bottom shading stays below ~15 %)."""
+
+PELLET_CHORD_TOLERANCE = (0.5, 1.6)
+"""Range allowed around the round bottom's chord ratio k = sqrt(1 − (1 − h/r)²) (geometry of
+a hemisphere of inner radius r at height h) for the liquid's absorbance scale: refraction
+in the bottom and its glass thickness change the effective path (chosen)."""
+
+PELLET_ROW_SHIFT_FRACTION = 0.03
+"""Rows (fraction of the tube width) by which the view through the tube and the backdrop
+strip beside it may be out of register at a band edge (chosen: 3 px on a 100 px tube)."""
+
+PELLET_K_STEPS = 9
+"""Grid of chord ratios tried per row in :func:`_opacity_dev`."""
+
+PELLET_MAX_ABSORBANCE = 3.0
+"""Apparent absorbances (natural log) are capped here: transmission below e⁻³ ≈ 5 %."""
+
+PELLET_REF_GAP_FRACTION = 0.15
+"""Reference liquid rows end this far (fraction of width) above the round bottom's start."""
+
+PELLET_REF_SPAN_FRACTION = 1.0
+"""Reference liquid rows start this far (fraction of width) above the round bottom's start."""
 
 PELLET_MIN_HEIGHT_MM = 0.5
 """Smallest settled solid reported (mm): below this the glass bottom's own shading
@@ -189,13 +213,18 @@ dominates."""
 PELLET_MIN_HEIGHT_PX = 3
 """Smallest settled solid reported when no mm scale is known (px)."""
 
-PELLET_BOTTOM_SKIP_FRACTION = 0.02
+PELLET_BOTTOM_SKIP_FRACTION = 0.04
 """Rows at the inside bottom allowed not to differ (glass bottom shading), as a fraction
 of the tube width."""
 
-PELLET_MAX_BAND_FOLLOW = 0.6
-"""On a banded backdrop, a solid's rows may follow the band pattern beside the tube
-with a correlation up to this; liquid rows follow it closely (≈ 1)."""
+PELLET_MAX_BAND_FOLLOW = 0.5
+"""On a banded backdrop, where a solid spans light and dark band rows, the band step seen
+through it may be at most this fraction of the step the liquid above transmits (an opaque
+layer shows ~0, the liquid itself 1; chosen half-way)."""
+
+PELLET_MIN_LIQUID_TRANSMISSION = 0.05
+"""The band-follow test needs the liquid above to transmit at least this fraction of the
+band step (a nearly black liquid shows no bands to compare with)."""
 
 PELLET_AXIS_HALF_FRACTION = 0.12
 """Half-width of the strip along the axis read for the solid, as a fraction of the tube
@@ -222,6 +251,20 @@ SIDE_GAP_FRACTION = 0.06
 
 SIDE_STRIP_FRACTION = 0.2
 """Width of each backdrop strip beside the tube (fraction of the tube width)."""
+
+WALL_ZONE_FRACTION = 0.15
+"""Width of the zone at each side of the box read for the glass wall's line (fraction of
+the tube width; the wall and its refracted edge lie within ~10 % of the width)."""
+
+OCCLUDER_EDGE_FRACTION = 0.2
+"""A row whose wall-line strength is below this × the tube's median is hidden by an object
+in front (an unhidden wall keeps well over half its strength from band to band; chosen)."""
+
+OCCLUDER_MIN_ROWS = 3
+"""Fewest consecutive rows counted as an object in front."""
+
+OCCLUDER_MARGIN_FRACTION = 0.06
+"""Rows added on each side of an object in front (its edges, its shadow), fraction of width."""
 
 FEATURE_NAMES: tuple[str, ...] = (
     "col_L", "col_a", "col_b", "col_chroma",         # CIELAB of the column (D65)
@@ -314,6 +357,8 @@ class TubeMeasurement:
 
 # --------------------------------------------------------------------------- helpers
 
+_DEBUG = None
+
 _Y_WEIGHTS = np.asarray(M_SRGB_TO_XYZ[1], dtype=np.float32)
 
 
@@ -372,6 +417,18 @@ class _Window:
     side_cols: np.ndarray    # window columns of the beside strips
 
 
+def _to_linear_fast(sub: np.ndarray) -> np.ndarray:
+    """sRGB codes → float32 linear light: the same table as :func:`tubevision.image.to_linear`
+    (IEC 61966-2-1), applied with OpenCV's table lookup for 8-bit windows (≈3× faster)."""
+    if sub.dtype == np.uint8:
+        import cv2
+
+        from .image import _linear_lut
+
+        return cv2.LUT(np.ascontiguousarray(sub), _linear_lut(np.uint8))
+    return to_linear(sub)
+
+
 def _window(pixels: np.ndarray, region) -> _Window:
     h, w = pixels.shape[:2]
     x0, y0, x1, y1 = region.bbox
@@ -386,7 +443,62 @@ def _window(pixels: np.ndarray, region) -> _Window:
     left = np.arange(max(0, x0 - gap - strip), max(0, x0 - gap))
     right = np.arange(min(w, x1 + gap), min(w, x1 + gap + strip))
     side = np.concatenate([left, right]) - c0
-    return _Window(lin=to_linear(sub), clip=clip, row0=y0, col0=c0, side_cols=side.astype(int))
+    return _Window(lin=_to_linear_fast(sub), clip=clip, row0=y0, col0=c0, side_cols=side.astype(int))
+
+
+def _occluder_rows(y_win: np.ndarray, region, win: _Window, classes=None) -> np.ndarray:
+    """Rows where something in front hides the tube (rack bar, label, finger), any colour.
+
+    The glass walls of a tube always show as lines in the photo: refraction at grazing
+    incidence and reflection make the wall's outer edge darker or brighter than what lies
+    beside it (geometric optics; visible over light and dark backdrop alike). An opaque
+    object in front of the tube hides both walls, so across those rows the luminance
+    profile over the wall zones is flat. A row is occluded when its strongest horizontal
+    step within the wall zones, relative to the row's level, is below
+    :data:`OCCLUDER_EDGE_FRACTION` × the median of that measure over the tube's column rows;
+    the medians are taken per backdrop class (``classes``: light, dark, unclassified rows),
+    since over a black band the walls may show only faintly. The result is widened by
+    :data:`OCCLUDER_MARGIN_FRACTION` of the tube width for the
+    object's own edges and shadow. The round bottom (rows from ``bottom_top``) is not
+    judged: there the walls curve in and leave the wall zones.
+    """
+    x0, y0, x1, y1 = region.bbox
+    width = x1 - x0
+    n = y_win.shape[0]
+    out = np.zeros(n, bool)
+    zone = max(2, int(round(WALL_ZONE_FRACTION * width)))
+    gap = max(1, int(round(width * SIDE_GAP_FRACTION)))
+    a0 = max(0, x0 - gap - win.col0)
+    cols = np.r_[a0:min(y_win.shape[1], x0 - win.col0 + zone),
+                 max(0, x1 - zone - win.col0):min(y_win.shape[1], x1 + gap - win.col0)]
+    if cols.size < 4:
+        return out
+    zy = y_win[:, cols]
+    step = np.abs(np.diff(zy, axis=1))
+    # the two wall zones are not adjacent: drop the step across their junction
+    jump = np.flatnonzero(np.diff(cols) > 1)
+    if jump.size:
+        step[:, jump] = 0.0
+    e = step.max(axis=1) / np.maximum(zy.mean(axis=1), 1e-4)
+    judged = np.zeros(n, bool)
+    judged[: max(0, min(n, region.bottom_top - y0))] = True
+    if judged.sum() < 8:
+        return out
+    # compared within each backdrop class: over a black band the walls may show only faintly
+    low = np.zeros(n, bool)
+    classes = [judged & c for c in classes] if classes is not None else [judged]
+    for sel in classes:
+        if sel.sum() < 8:
+            sel = judged
+        ref = float(np.median(e[sel]))
+        if ref > 1e-3:
+            low |= sel & (e < OCCLUDER_EDGE_FRACTION * ref)
+    # a run of at least a few rows (single noisy rows are not an object)
+    runs = [(a, b) for a, b, v in _runs(low) if v and b - a >= OCCLUDER_MIN_ROWS]
+    m = max(1, int(round(OCCLUDER_MARGIN_FRACTION * width)))
+    for a, b in runs:
+        out[max(0, a - m):min(n, b + m)] = True
+    return out
 
 
 def _lab_stats(correction, rgb: np.ndarray, n_eff: int):
@@ -422,6 +534,56 @@ def _edge_width_px(y_rows: np.ndarray, col: int, half: int) -> float:
     if step <= 1e-4 or slope <= 1e-9:
         return float("nan")
     return step / slope
+
+
+# --------------------------------------------------------------------------- scale
+
+def mm_per_px_at(homography_mm_to_px, point_px, direction=(0.0, 1.0)) -> float:
+    """Scale (mm per px) at a photo point, along a photo direction, from the card's homography.
+
+    The card lies in the scene plane of the rack's front (as the user is told to place it),
+    so the homography from card mm to photo px also maps that plane near the tubes. Its
+    local scale changes across the frame under perspective; the card's own ``mm_per_px``
+    holds only at the card. Here the inverse homography maps ``point_px`` and a point one
+    pixel away along ``direction`` (default: down the image, along an upright tube's axis)
+    to the plane, and their distance in mm is the scale there (projective geometry:
+    Hartley & Zisserman, Multiple View Geometry, 2nd ed., 2004, §2.3).
+
+    Parameters
+    ----------
+    homography_mm_to_px : (3, 3) array — ``CardDetection.homography_mm_to_px``.
+    point_px : (x, y) — e.g. the tube's axis at its inside bottom.
+    direction : (dx, dy) — photo direction of the length measured; normalised here.
+
+    Returns
+    -------
+    float — mm per px, > 0.
+
+    Raises
+    ------
+    TubevisionInputError
+        A singular homography or a point on its horizon line.
+
+    Examples
+    --------
+    >>> round(mm_per_px_at(np.diag([4.0, 4.0, 1.0]), (100, 200)), 6)   # 4 px per mm
+    0.25
+    """
+    h = np.asarray(homography_mm_to_px, dtype=float)
+    if h.shape != (3, 3) or not np.isfinite(h).all() or abs(np.linalg.det(h)) < 1e-12:
+        raise TubevisionInputError("card homography must be a finite, invertible 3x3 matrix")
+    inv = np.linalg.inv(h)
+    d = np.asarray(direction, dtype=float)
+    d = d / max(float(np.hypot(*d)), 1e-12)
+    pts = np.array([[point_px[0], point_px[1], 1.0],
+                    [point_px[0] + d[0], point_px[1] + d[1], 1.0]]) @ inv.T
+    if np.any(np.abs(pts[:, 2]) < 1e-12):
+        raise TubevisionInputError("point lies on the card homography's horizon")
+    mm = pts[:, :2] / pts[:, 2:3]
+    scale = float(np.hypot(*(mm[1] - mm[0])))
+    if not (np.isfinite(scale) and scale > 0):
+        raise TubevisionInputError("card homography gives no scale at this point")
+    return scale
 
 
 # --------------------------------------------------------------------------- main
@@ -475,6 +637,11 @@ def measure_tube(pixels: np.ndarray, region, *, correction=None, mm_per_px: floa
         beside_y = np.full(n_rows, np.nan)
         beside_rgb = np.full((n_rows, 3), np.nan)
     light_rows, dark_rows, banded, occluded = _classify_rows(beside_y)
+    hidden_front = _occluder_rows(y_win, region, win,
+                                  (light_rows, dark_rows, ~(light_rows | dark_rows)) if banded else None)
+    occluded = occluded | hidden_front
+    light_rows = light_rows & ~hidden_front
+    dark_rows = dark_rows & ~hidden_front
 
     ic0, ic1 = region.inner_col0 - win.col0, region.inner_col1 - win.col0
     inner_y = y_win[:, ic0:ic1]
@@ -484,7 +651,7 @@ def measure_tube(pixels: np.ndarray, region, *, correction=None, mm_per_px: floa
 
     # settled solid first: the column stops above it
     pellet, pellet_info = _find_pellet(win, region, correction, mm_per_px, light_rows, dark_rows,
-                                       banded, beside_y)
+                                       banded, beside_y, beside_rgb)
 
     empty = region.liquid_top is None
     top = (region.liquid_top if region.liquid_top is not None else y0) - y0
@@ -613,16 +780,26 @@ def _classify_rows(beside_y: np.ndarray):
     return light, dark, True, occluded
 
 
-def _bootstrap(fn, groups: list[np.ndarray]) -> float:
-    """sd of ``fn(*groups)`` over a seeded bootstrap of each group's elements."""
-    rng = np.random.default_rng(BOOTSTRAP_SEED)
-    vals = []
-    for _ in range(BOOTSTRAP_N):
-        sample = [g[rng.integers(0, g.size, g.size)] for g in groups]
-        v = fn(*sample)
-        if np.isfinite(v):
-            vals.append(v)
-    return float(np.std(vals, ddof=1)) if len(vals) > 2 else float("nan")
+def _median_se(x: np.ndarray) -> float:
+    """Standard error of a median: sqrt(π/2)·σ/sqrt(n), σ from the MAD (× 1.4826, the normal
+    consistency factor). Asymptotic result for the sample median of normal data (e.g.
+    Kendall & Stuart, The Advanced Theory of Statistics, vol. 1, §10.10)."""
+    x = np.asarray(x, float)
+    if x.size < 2:
+        return float("nan")
+    sigma = 1.4826 * float(np.median(np.abs(x - np.median(x))))
+    return math.sqrt(math.pi / 2.0) * sigma / math.sqrt(x.size)
+
+
+def _log_michelson_var(light: np.ndarray, dark: np.ndarray) -> tuple[float, float]:
+    """Michelson contrast of the medians and the variance of its natural log (delta method:
+    ∂C/∂L = 2D/(L+D)², ∂C/∂D = −2L/(L+D)²; first-order error propagation, JCGM 100:2008 §5.1)."""
+    lo, da = float(np.median(light)), float(np.median(dark))
+    s = max(lo + da, 1e-9)
+    c = (lo - da) / s
+    sl, sd = _median_se(light), _median_se(dark)
+    dc = math.hypot(2 * da / s ** 2 * sl, 2 * lo / s ** 2 * sd)
+    return c, (dc / max(abs(c), 1e-4)) ** 2
 
 
 def _air_ratio(win, inner_rgb, inner_clip, light_rows, beside_rgb, stop: int):
@@ -639,51 +816,82 @@ def _air_ratio(win, inner_rgb, inner_clip, light_rows, beside_rgb, stop: int):
     return q if np.all(np.isfinite(q)) and np.all(q > 0.2) else None
 
 
+def _masked_row_mean(values: np.ndarray, ok: np.ndarray) -> np.ndarray:
+    """Per-row mean of ``values`` (R, C) or (R, C, 3) over ``ok`` (R, C); NaN for rows with none."""
+    cnt = ok.sum(axis=1)
+    if values.ndim == 3:
+        tot = np.einsum("rc,rck->rk", ok.astype(values.dtype), values)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.where(cnt[:, None] > 0, tot / np.maximum(cnt, 1)[:, None], np.nan)
+    tot = (values * ok).sum(axis=1)
+    return np.where(cnt > 0, tot / np.maximum(cnt, 1), np.nan)
+
+
 def _turbidity(inner_y, inner_rgb, good, use_light, use_dark, beside_y, beside_rgb, banded, highlight,
                air=None):
-    """τ and its sd (module docstring)."""
+    """τ and its sd (module docstring). Rows are summarised by the mean of their pixels
+    without highlights; τ uses the medians of those row values; its sd is propagated
+    analytically from the medians' standard errors (:func:`_median_se`)."""
     ok = ~highlight
-    with warnings.catch_warnings():  # all-NaN rows (all highlight) give NaN, on purpose
-        warnings.simplefilter("ignore", RuntimeWarning)
-        row_y = np.nanmedian(np.where(ok, inner_y, np.nan), axis=1) if ok.any() else \
-            np.full(inner_y.shape[0], np.nan)
+    row_y = _masked_row_mean(inner_y, ok)
     fin = np.isfinite(row_y)
     if banded and (use_dark & fin).sum() >= 3 and (use_light & fin).sum() >= 3:
-        tl, td = row_y[use_light & fin], row_y[use_dark & fin]
-        bl, bd = beside_y[use_light & fin], beside_y[use_dark & fin]
-
-        def tau_of(tl, td, bl, bd):
-            ct, cb = _michelson(tl, td), _michelson(bl, bd)
-            if cb <= 0:
-                return float("nan")
-            return -math.log(max(ct, 1e-4) / cb)
-
-        raw = tau_of(tl, td, bl, bd)
-        sd = max(TURBIDITY_SD_FLOOR, _bootstrap(tau_of, [tl, td, bl, bd]))
-        ratio = math.exp(-raw)
-        return dict(value=max(0.0, raw), raw=raw, sd=sd, ratio=ratio, method="band-contrast")
+        lsel, dsel = use_light & fin, use_dark & fin
+        ct, vt = _log_michelson_var(row_y[lsel], row_y[dsel])
+        cb, vb = _log_michelson_var(beside_y[lsel], beside_y[dsel])
+        if cb <= 0:
+            return dict(value=0.0, raw=0.0, sd=float("nan"), ratio=1.0, method="band-contrast")
+        raw = -math.log(max(ct, 1e-4) / cb)
+        sd = max(TURBIDITY_SD_FLOOR, math.sqrt(vt + vb))
+        return dict(value=max(0.0, raw), raw=raw, sd=sd, ratio=math.exp(-raw), method="band-contrast")
     rows = use_light & fin
     if rows.sum() < 3:
         return dict(value=0.0, raw=0.0, sd=float("nan"), ratio=1.0, method="plain-veil")
-    sel = np.flatnonzero(rows)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
-        row_rgb = np.nanmedian(np.where(ok[sel][..., None], inner_rgb[sel], np.nan), axis=1)
+    row_rgb = _masked_row_mean(inner_rgb[rows], ok[rows])
     b_rgb = beside_rgb[rows]
-
     q_clear = np.asarray(air) if air is not None else np.full(3, Q_CLEAR_PLAIN)
-
-    def tau_plain(c, b):
-        q = np.median(c, axis=0) / np.maximum(np.median(b, axis=0), 1e-6) / q_clear
-        return math.log(max(float(q.max()), 1e-6))
-
-    idx = np.arange(row_rgb.shape[0])
-    raw = tau_plain(row_rgb, b_rgb)
-    sd = max(TURBIDITY_SD_FLOOR, _bootstrap(lambda i: tau_plain(row_rgb[i], b_rgb[i]), [idx]))
+    q_rows = row_rgb / np.maximum(b_rgb, 1e-6) / q_clear        # (n, 3)
+    q = np.median(q_rows, axis=0)
+    c = int(np.argmax(q))
+    raw = math.log(max(float(q[c]), 1e-6))
+    sd = max(TURBIDITY_SD_FLOOR, _median_se(q_rows[:, c]) / max(float(q[c]), 1e-6))
     return dict(value=max(0.0, raw), raw=raw, sd=sd, ratio=1.0, method="plain-veil")
 
 
-def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_rows, banded, beside_y):
+def _opacity_dev(ln_i, ln_b, a_ref, k_lo, k_hi, shift: int) -> np.ndarray:
+    """Per row, how far the light seen through the tube is from any liquid-like reading.
+
+    ``ln_i`` (n, 3) log of the light through the tube, ``ln_b`` (n, 3) log of the backdrop
+    beside it, ``a_ref`` (n, 3) the liquid's full-chord absorbance −ln(I/B) predicted for
+    each row's backdrop. A liquid row satisfies −ln(I/B) = k·a_ref for one k in
+    [k_lo, k_hi] (Beer–Lambert over the row's chord). Returned: the smallest max-channel
+    |difference| over k (a grid of :data:`PELLET_K_STEPS`), where for each k the
+    prediction may be anything between its values for the beside readings up to
+    ``shift`` rows away (the view through the tube and the strip beside it may be out of
+    register, or blurred differently, by a pixel or two at band edges: lean, parallax,
+    the tube's own lens).
+    Absorbances are capped at :data:`PELLET_MAX_ABSORBANCE`: below ~5 % transmission a
+    camera's flare, noise and tone curve leave no reliable reading (common practice).
+    """
+    n = ln_i.shape[0]
+    kk = k_lo[:, None] + (k_hi - k_lo)[:, None] * np.linspace(0.0, 1.0, PELLET_K_STEPS)[None, :]   # (n, K)
+    idx = np.arange(n)
+    lo = np.full((n, kk.shape[1], 3), np.inf)
+    hi = np.full((n, kk.shape[1], 3), -np.inf)
+    for s in range(-shift, shift + 1):
+        j = np.clip(idx + s, 0, n - 1)
+        # predicted log light through the liquid, given the backdrop of row j
+        pred = ln_b[j][:, None, :] - np.minimum(kk[:, :, None] * a_ref[j][:, None, :], PELLET_MAX_ABSORBANCE)
+        lo = np.minimum(lo, pred)
+        hi = np.maximum(hi, pred)
+    floor = (ln_b - PELLET_MAX_ABSORBANCE)[:, None, :]          # darker than this reads as this
+    obs = np.maximum(ln_i[:, None, :], np.minimum(floor, lo))
+    d = np.maximum(np.maximum(lo - obs, obs - hi), 0.0)          # distance outside the hull
+    return d.max(axis=2).min(axis=1)
+
+
+def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_rows, banded, beside_y,
+                 beside_rgb):
     """Settled solid at the bottom (module docstring). Returns (PelletMeasurement, info)."""
     x0, y0, x1, y1 = region.bbox
     width = x1 - x0
@@ -697,53 +905,85 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     if ib - top < 6 or a1 <= a0:
         return none, info
     strip = win.lin[top:ib + 1, a0:a1]
-    row_rgb = np.median(strip, axis=1)                    # rows top..ib
+    row_rgb = np.median(strip, axis=1)                    # rows top..ib (robust to the rim)
     lab_rows = _row_lab(correction, row_rgb)
     rows = np.arange(top, ib + 1)
-    # the liquid just above the bottom region, per backdrop class
+    # the liquid above the bottom region, per backdrop class
     bt = region.bottom_top - y0
-    ref_span = max(4, int(round(1.0 * width)))
-    ref_sel = (rows < bt) & (rows >= bt - ref_span)
+    ref_sel = (rows < bt - int(round(PELLET_REF_GAP_FRACTION * width))) & \
+        (rows >= bt - int(round(PELLET_REF_SPAN_FRACTION * width)))
     if ref_sel.sum() < 3:
         ref_sel = rows < bt
     if ref_sel.sum() < 2:
         return none, info
-    ref_light_sel = ref_sel & light_rows[rows]
-    ref_dark_sel = ref_sel & dark_rows[rows]
-    ref_light = np.median(lab_rows[ref_light_sel if ref_light_sel.sum() >= 2 else ref_sel], axis=0)
-    ref_dark = np.median(lab_rows[ref_dark_sel], axis=0) if banded and ref_dark_sel.sum() >= 2 else ref_light
-    ref = np.where(dark_rows[rows][:, None], ref_dark, ref_light)
+    cls_light, cls_dark = light_rows[rows], dark_rows[rows]
+    ref_light_sel = ref_sel & cls_light
+    ref_dark_sel = ref_sel & cls_dark
+    use_l = ref_light_sel if ref_light_sel.sum() >= 2 else ref_sel
+    ref_light = np.median(lab_rows[use_l], axis=0)
+    have_dark = banded and ref_dark_sel.sum() >= 2
+    ref_dark = np.median(lab_rows[ref_dark_sel], axis=0) if have_dark else ref_light
+    ref = np.where(cls_dark[:, None], ref_dark, ref_light)
     de = delta_e00(lab_rows, ref)
+    # opacity: each row's apparent absorbance against the backdrop beside it, compared
+    # with what the liquid above would show there. The liquid is modelled per channel as
+    # I = T·B + S (module docstring) from its light and dark reference rows, so the
+    # prediction holds for any backdrop level B, band edges included; over the round
+    # bottom's shorter chord its absorbance scales by k (Beer–Lambert).
+    b_rows = np.maximum(beside_rgb[rows], 1e-4)
+    absorb = -np.log(np.maximum(row_rgb, 1e-4) / b_rows)                       # (n, 3)
+    i_l, b_l = np.median(row_rgb[use_l], axis=0), np.median(b_rows[use_l], axis=0)
+    if have_dark:
+        i_d, b_d = np.median(row_rgb[ref_dark_sel], axis=0), np.median(b_rows[ref_dark_sel], axis=0)
+        t_c = np.clip((i_l - i_d) / np.maximum(b_l - b_d, 1e-4), 1e-4, None)
+        s_c = np.clip(i_l - t_c * b_l, 0.0, None)
+    else:
+        t_c, s_c = i_l / np.maximum(b_l, 1e-4), np.zeros(3)
+    a_ref = -np.log(np.maximum(t_c * b_rows + s_c, 1e-4) / b_rows)              # (n, 3)
+    r_in = max(1.0, float(region.inner_bottom - region.bottom_top))
+    h = (region.inner_bottom - y0) + 0.5 - rows
+    k_geo = np.sqrt(np.clip(1.0 - (1.0 - np.clip(h / r_in, 0.0, 1.0)) ** 2, 0.0, 1.0))
+    k_lo = PELLET_CHORD_TOLERANCE[0] * k_geo
+    k_hi = np.minimum(1.0, PELLET_CHORD_TOLERANCE[1] * k_geo)
+    shift = max(1, int(round(PELLET_ROW_SHIFT_FRACTION * width)))
+    ln_b = np.log(b_rows)
+    dev = _opacity_dev(np.log(np.maximum(row_rgb, 1e-4)), ln_b, a_ref, k_lo, k_hi, shift)
+    fin = np.isfinite(dev)
+    dev = np.where(fin, dev, 0.0)
     # bottom-region difference, whatever is there
     bsel = rows >= bt
     info["bottom_de"] = float(np.median(de[bsel])) if bsel.any() else 0.0
+    if _DEBUG is not None:
+        _DEBUG.append(dict(absorb=absorb, pred=a_ref, rows=rows, de=de, dev=dev, light=cls_light, dark=cls_dark, k=k_geo, kgeo=k_geo))
     # one run from the bottom upward
     skip = max(1, int(round(PELLET_BOTTOM_SKIP_FRACTION * width)))
-    classified = (light_rows[rows] | dark_rows[rows]) if banded else np.ones(rows.size, bool)
-    is_solid = (de >= PELLET_MIN_CONTRAST_DE00) & classified
-    unknown = ~classified
-    if banded and is_solid[rows >= bt].any():
-        # rows of a band class in which this solid looks like the liquid (a white solid
-        # over the light bands) can neither confirm nor end the solid
-        c_s = np.median(lab_rows[is_solid & (rows >= bt)], axis=0)
-        for cls, ref_c in ((light_rows[rows], ref_light), (dark_rows[rows], ref_dark)):
-            if float(delta_e00(c_s, ref_c)) < PELLET_MIN_CONTRAST_DE00:
-                unknown |= cls & ~is_solid
+    is_solid = (dev >= PELLET_MIN_OPACITY) & fin
+    unknown = ~fin
+    # the lowest rows show the glass bottom's dark edge (refraction at grazing angles,
+    # blur): they can neither confirm nor end a solid
+    is_solid[rows.size - skip:] = False
+    unknown[rows.size - skip:] = True
+    if is_solid.any():
+        # rows where this solid would look like the liquid (a white solid over the light
+        # bands, a dark one over the dark bands) can neither confirm nor end it
+        ln_s = np.log(np.maximum(np.median(row_rgb[is_solid], axis=0), 1e-4))
+        dev_s = _opacity_dev(np.broadcast_to(ln_s, row_rgb.shape), ln_b, a_ref, k_lo, k_hi, shift)
+        unknown |= ~is_solid & (dev_s < PELLET_MIN_OPACITY)
     allowed = is_solid | unknown
-    k = len(rows) - 1
-    j = k
-    while j >= 0 and (allowed[j] or k - j < skip or (j - 1 >= 0 and allowed[j - 1] and is_solid[j - 1])):
+    last = len(rows) - 1
+    j = last
+    while j >= 0 and (allowed[j] or (j - 1 >= 0 and allowed[j - 1] and is_solid[j - 1])):
         j -= 1
-    walked = np.arange(j + 1, k + 1)
+    walked = np.arange(j + 1, last + 1)
     solid_idx = walked[is_solid[walked]]
     if solid_idx.size == 0:
         return none, info
     top_j = int(solid_idx.min())
     start = int(solid_idx.max())
     run = slice(top_j, start + 1)
-    # sub-row edge: where de crosses half-way between solid and the liquid above
-    solid_level = float(np.median(de[run][is_solid[run]]))
-    above = de[max(0, top_j - max(3, skip * 2)):top_j]
+    # sub-row edge: where the opacity measure crosses half-way between solid and liquid
+    solid_level = float(np.median(dev[run][is_solid[run]]))
+    above = dev[max(0, top_j - max(3, skip * 2)):top_j]
     liquid_level = float(np.median(above)) if above.size else 0.0
     half_level = 0.5 * (solid_level + liquid_level)
     edge_row = float(rows[top_j]) - 0.5
@@ -751,18 +991,32 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     if unknown_above > 0:
         # the top lies somewhere in those rows: take their middle, sd = span / sqrt(12)
         edge_row -= unknown_above / 2.0
-    elif top_j >= 1 and de[top_j] != de[top_j - 1]:
+    elif top_j >= 1 and dev[top_j] != dev[top_j - 1]:
         # linear interpolation between the last liquid row and the first solid row
-        f = (half_level - de[top_j - 1]) / (de[top_j] - de[top_j - 1])
+        f = (half_level - dev[top_j - 1]) / (dev[top_j] - dev[top_j - 1])
         edge_row = float(rows[top_j - 1]) + float(np.clip(f, 0.0, 1.0))
     height_px = (region.inner_bottom - y0) + 0.5 - edge_row
-    contrast = float(np.median(de[run][is_solid[run]]))
+    # distinct: the solid's colour differs from the liquid's over light (or dark) band rows
+    lab_s = _row_lab(correction, np.median(row_rgb[run][is_solid[run]], axis=0)[None])[0]
+    contrast = float(delta_e00(lab_s, ref_light))
+    if have_dark:
+        contrast = max(contrast, float(delta_e00(lab_s, ref_dark)))
     follow = 0.0
     if banded:
-        yy = row_rgb[run][is_solid[run]] @ _Y_WEIGHTS
-        bb = beside_y[rows[run][is_solid[run]]]
-        if yy.size >= 4 and yy.std() > 0 and bb.std() > 0:
-            follow = float(np.corrcoef(yy, bb)[0, 1])
+        # opacity against the bands: how much of the band pattern behind still shows through
+        # the solid rows, as a fraction of what the liquid above transmits of it
+        yr = row_rgb @ _Y_WEIGHTS
+        sr = np.zeros(rows.size, bool)
+        sr[run] = is_solid[run]
+        ls, ds = sr & cls_light, sr & cls_dark
+        lr_, dr_ = ref_light_sel, ref_dark_sel
+        if ls.sum() >= 2 and ds.sum() >= 2 and lr_.sum() >= 2 and dr_.sum() >= 2:
+            bl, bd = np.median(beside_y[rows[ls]]), np.median(beside_y[rows[ds]])
+            t_liq = (np.median(yr[lr_]) - np.median(yr[dr_])) / max(
+                float(np.median(beside_y[rows[lr_]]) - np.median(beside_y[rows[dr_]])), 1e-6)
+            t_sol = (np.median(yr[ls]) - np.median(yr[ds])) / max(float(bl - bd), 1e-6)
+            if t_liq > PELLET_MIN_LIQUID_TRANSMISSION:
+                follow = float(t_sol / t_liq)
     info.update(contrast=contrast, band_follow=follow, height_px=height_px)
     min_px = PELLET_MIN_HEIGHT_PX if mm_per_px is None else max(PELLET_MIN_HEIGHT_PX - 1,
                                                                 PELLET_MIN_HEIGHT_MM / mm_per_px)
