@@ -18,7 +18,8 @@ from typing import Any
 from .errors import TubevisionInputError
 from .image import Photo
 
-__all__ = ["AnalysisOptions", "PhotoAnalysis", "analyze_photo", "card_reference_for", "load_shared"]
+__all__ = ["AnalysisOptions", "PhotoAnalysis", "analyze_photo", "card_reference_for", "load_shared",
+           "parse_standard_values", "fit_standards_from_photo"]
 
 log = logging.getLogger(__name__)
 
@@ -40,6 +41,7 @@ class AnalysisOptions:
     step: str | None = None
     labels: str | None = None
     model: str | None = None
+    turbidity_curve: str | None = None
     command: tuple[str, ...] = ()
 
 
@@ -89,7 +91,12 @@ def load_shared(options: AnalysisOptions) -> dict:
     """
     from . import classify
 
-    shared = {"card_reference": None, "scheme": None, "model": classify.load_model(options.model)}
+    shared = {"card_reference": None, "scheme": None, "model": classify.load_model(options.model),
+              "turbidity_curve": None}
+    if options.turbidity_curve:
+        from .turbidity import load_curve
+
+        shared["turbidity_curve"] = load_curve(options.turbidity_curve)
     if not options.no_card:
         shared["card_reference"] = card_reference_for(options)
     if options.scheme:
@@ -105,15 +112,15 @@ def file_sha256(path: str | Path) -> str:
 
 
 def analyze_photo(photo: Photo, options: AnalysisOptions = AnalysisOptions(), *,
-                  card_reference=None, scheme=None, model=None) -> PhotoAnalysis:
+                  card_reference=None, scheme=None, model=None, turbidity_curve=None) -> PhotoAnalysis:
     """Run every stage on one photo.
 
     Parameters
     ----------
     photo : the decoded photo (:func:`tubevision.image.load_photo`).
     options : the user's choices.
-    card_reference, scheme, model : already-loaded objects, so that a batch
-        of photos parses each data file once; loaded from ``options`` when None.
+    card_reference, scheme, model, turbidity_curve : already-loaded objects, so that a
+        batch of photos parses each data file once; loaded from ``options`` when None.
 
     Returns
     -------
@@ -146,6 +153,10 @@ def analyze_photo(photo: Photo, options: AnalysisOptions = AnalysisOptions(), *,
         raise TubevisionInputError("--step and --labels need --scheme")
     if model is None:
         model = classify.load_model(options.model)
+    if turbidity_curve is None and options.turbidity_curve:
+        from .turbidity import load_curve
+
+        turbidity_curve = load_curve(options.turbidity_curve)
 
     # card
     detection = None
@@ -177,7 +188,8 @@ def analyze_photo(photo: Photo, options: AnalysisOptions = AnalysisOptions(), *,
 
     # measure, classify
     measurements = tuple(
-        measure.measure_tube(photo.pixels, region, correction=correction, mm_per_px=mm_per_px)
+        measure.measure_tube(photo.pixels, region, correction=correction, mm_per_px=mm_per_px,
+                             turbidity_curve=turbidity_curve)
         for region in finding.regions
     )
     if hasattr(measure, "photo_quality"):
@@ -203,3 +215,70 @@ def analyze_photo(photo: Photo, options: AnalysisOptions = AnalysisOptions(), *,
         measurements=measurements, calls=calls, scheme=scheme, labels=labels,
         judgement=judgement, warnings=tuple(dict.fromkeys(warnings)), ran_at=ran_at,
     )
+
+
+def parse_standard_values(text: str) -> dict[int, float]:
+    """``"1=0,2=0.5,3=1"`` → {0: 0.0, 1: 0.5, 2: 1.0}: tube positions (from 1, reading order)
+    and the known values of the standards in them.
+
+    Raises
+    ------
+    TubevisionInputError
+        An item without ``=``, a position that is not a whole number ≥ 1, a value that is
+        not a finite number, or a position given twice.
+
+    Examples
+    --------
+    >>> parse_standard_values("1=0, 2=0.5,3=1")
+    {0: 0.0, 1: 0.5, 2: 1.0}
+    """
+    import math
+
+    out: dict[int, float] = {}
+    for item in (text or "").split(","):
+        item = item.strip()
+        if not item:
+            continue
+        pos, sep, val = item.partition("=")
+        try:
+            k = int(pos.strip())
+            v = float(val.strip())
+        except ValueError:
+            k, v = 0, float("nan")
+        if not sep or k < 1 or not math.isfinite(v):
+            raise TubevisionInputError(f"--values: {item!r}: expected POSITION=VALUE, e.g. 1=0.5")
+        if k - 1 in out:
+            raise TubevisionInputError(f"--values: position {k} given twice")
+        out[k - 1] = v
+    if not out:
+        raise TubevisionInputError("--values: give each standard's position and value, e.g. \"1=0,2=0.5,3=1\"")
+    return out
+
+
+def fit_standards_from_photo(analysis: PhotoAnalysis, values: dict[int, float], *, unit: str):
+    """Fit a turbidity curve to the standards photographed in ``analysis``.
+
+    ``values`` maps tube index (reading order, from 0) to the standard's known value in
+    ``unit``. Returns ``(curve, rows)`` with rows ``(tube id, τ, value)``.
+
+    Raises
+    ------
+    TubevisionInputError
+        A position with no tube, a standard read as empty, or too few standards
+        (:func:`tubevision.turbidity.fit_turbidity_curve`).
+    """
+    from .turbidity import fit_turbidity_curve
+
+    n = len(analysis.finding.regions)
+    rows = []
+    for k in sorted(values):
+        if k >= n:
+            raise TubevisionInputError(f"--values: position {k + 1}, but {n} tubes were found")
+        m = analysis.measurements[k]
+        if m.liquid is None:
+            raise TubevisionInputError(f"--values: tube T{k + 1} reads as empty; no turbidity to calibrate")
+        rows.append((f"T{k + 1}", float(m.liquid.turbidity), float(values[k])))
+    source = (f"{len(rows)} standards in {analysis.photo.meta.file} "
+              f"(sha256 {analysis.photo.meta.sha256[:12]}…), calibration {analysis.calibration_status}")
+    curve = fit_turbidity_curve([r[1] for r in rows], [r[2] for r in rows], unit=unit, source=source)
+    return curve, rows

@@ -58,7 +58,20 @@ def _build_parser() -> argparse.ArgumentParser:
     a.add_argument("--step", help="the scheme step this photo shows")
     a.add_argument("--labels", help='tube labels by position, e.g. "1=control,2=unknown A,3=blank"')
     a.add_argument("--model", metavar="FILE", help="state classifier parameters (JSON) to use")
+    a.add_argument("--turbidity-curve", metavar="FILE",
+                   help="also report turbidity in a standards' unit (a curve from 'tubevision standards')")
     a.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
+
+    t = sub.add_parser("standards", help="fit a turbidity curve to a photo of standards (McFarland, NTU)")
+    t.add_argument("photo", metavar="PHOTO")
+    t.add_argument("--values", required=True, help='known value by tube position, e.g. "1=0,2=0.5,3=1,4=2"')
+    t.add_argument("--unit", required=True, help="unit of the values, e.g. McFarland or NTU")
+    t.add_argument("--out", required=True, metavar="CURVE.json", help="where to write the curve")
+    t.add_argument("--card-ref", metavar="FILE", help="measured card values, CGATS.17 text (D50)")
+    t.add_argument("--no-card", action="store_true", help="run uncalibrated on purpose")
+    t.add_argument("--layout", metavar="FILE", help='tube boxes as JSON {"tubes": [{"bbox": [...]}]}')
+    t.add_argument("--tubes", type=int, metavar="N", help="how many tubes to expect")
+    t.add_argument("--overwrite", action="store_true", help="replace an existing curve file")
 
     c = sub.add_parser("conclude", help="combine step records into calls per sample")
     c.add_argument("records", nargs="+", metavar="RECORD.json")
@@ -114,7 +127,7 @@ def _options(args, argv) -> "object":
 
     if args.no_card and args.card_ref:
         raise TubevisionInputError("--no-card and --card-ref exclude each other")
-    if args.json and len(args.photos) != 1:
+    if getattr(args, "json", False) and len(args.photos) != 1:
         raise TubevisionInputError("--json takes exactly one photo")
     if args.tubes is not None and not 1 <= args.tubes <= 48:
         raise TubevisionInputError(f"--tubes: expected 1 to 48, got {args.tubes}")
@@ -134,6 +147,7 @@ def _options(args, argv) -> "object":
         layout_boxes=boxes, layout_file=layout_file, expected_tubes=args.tubes,
         scheme=scheme, step=args.step, labels=args.labels,
         model=_existing_file(args.model, "--model"),
+        turbidity_curve=_existing_file(getattr(args, "turbidity_curve", None), "--turbidity-curve"),
         command=tuple(["tubevision"] + list(argv)),
     )
 
@@ -169,6 +183,34 @@ def _cmd_analyze(args, argv) -> int:
             print(f"{photo.meta.file}: warning: {w}", file=sys.stderr)
         status = max(status, analysis.exit_status)
     return status
+
+
+def _cmd_standards(args, argv) -> int:
+    from .analysis import analyze_photo, fit_standards_from_photo, parse_standard_values
+    from .image import load_photo
+    from .record.write import atomic_write_text
+    from .turbidity import curve_to_json
+
+    values = parse_standard_values(args.values)
+    out = Path(args.out)
+    if out.exists() and not args.overwrite:
+        raise TubevisionInputError(f"{out}: already exists; pass --overwrite to replace it")
+    args.photos, args.json, args.scheme, args.step, args.labels, args.model = [args.photo], False, None, None, None, None
+    options = _options(args, argv)
+    p = Path(args.photo)
+    if not p.is_file():
+        raise TubevisionInputError(f"{args.photo}: no such file" if not p.exists() else f"{args.photo}: not a file")
+    analysis = analyze_photo(load_photo(args.photo), options)
+    curve, rows = fit_standards_from_photo(analysis, values, unit=args.unit)
+    atomic_write_text(out, curve_to_json(curve) + "\n", overwrite=args.overwrite)
+    print(f"{'tube':<5} {'turbidity':>10} {args.unit:>12} {'curve':>10}")
+    for tid, tau, val in rows:
+        print(f"{tid:<5} {tau:10.4f} {val:12.4g} {float(curve(tau)):10.4g}")
+    lo, hi = curve.reading_range
+    print(f"valid for turbidity {lo:.4g} to {hi:.4g}; wrote {out}", file=sys.stderr)
+    for w in analysis.warnings:
+        print(f"{analysis.photo.meta.file}: warning: {w}", file=sys.stderr)
+    return analysis.exit_status
 
 
 def _cmd_conclude(args) -> int:
@@ -331,6 +373,8 @@ def main(argv: list[str] | None = None) -> int:
             return 2
         if args.command == "analyze":
             return _cmd_analyze(args, argv)
+        if args.command == "standards":
+            return _cmd_standards(args, argv)
         if args.command == "conclude":
             return _cmd_conclude(args)
         if args.command == "card":

@@ -72,6 +72,9 @@ def settings_digest(analysis) -> str:
         "expected": o.expected_tubes, "scheme": o.scheme, "scheme_file": _file_hash(o.scheme),
         "step": o.step, "labels": o.labels, "model": _file_hash(o.model), "version": __version__,
     }
+    curve = getattr(o, "turbidity_curve", None)
+    if curve:  # only when given, so that digests of earlier runs stay the same
+        key["turbidity_curve"] = _file_hash(curve)
     return hashlib.sha256(json.dumps(key, sort_keys=True).encode()).hexdigest()
 
 
@@ -209,6 +212,8 @@ def build_record(analysis) -> dict[str, Any]:
         "scheme": ({"name": o.scheme, "sha256": _file_hash(o.scheme)} if o.scheme else None),
         "layout": {"file": o.layout_file, "sha256": _file_hash(o.layout_file)} if o.layout_file else None,
         "model": {"file": o.model, "sha256": _file_hash(o.model)} if o.model else None,
+        "turbidity_curve": ({"file": o.turbidity_curve, "sha256": _file_hash(o.turbidity_curve)}
+                            if getattr(o, "turbidity_curve", None) else None),
         "device": {"make": meta.camera_make, "model": meta.camera_model},
     }
     try:
