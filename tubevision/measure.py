@@ -194,6 +194,10 @@ PELLET_ROW_SHIFT_FRACTION = 0.03
 """Rows (fraction of the tube width) by which the view through the tube and the backdrop
 strip beside it may be out of register at a band edge (chosen: 3 px on a 100 px tube)."""
 
+PELLET_MAX_HEIGHT_FRACTION = 1.0
+"""Settled solid is looked for up to this × the tube width above the round bottom's start
+(a solid ~1.5 diameters high; more is a packed tube, not a pellet)."""
+
 PELLET_K_STEPS = 9
 """Grid of chord ratios tried per row in :func:`_opacity_dev`."""
 
@@ -251,6 +255,9 @@ SIDE_GAP_FRACTION = 0.06
 
 SIDE_STRIP_FRACTION = 0.2
 """Width of each backdrop strip beside the tube (fraction of the tube width)."""
+
+SIDE_STRIP_MAX_COLS = 16
+"""At most about this many columns of each beside strip are read (every n-th column)."""
 
 WALL_ZONE_FRACTION = 0.15
 """Width of the zone at each side of the box read for the glass wall's line (fraction of
@@ -439,9 +446,11 @@ def _window(pixels: np.ndarray, region) -> _Window:
     c1 = min(w, x1 + gap + strip)
     sub = pixels[y0:y1, c0:c1]
     top = np.iinfo(pixels.dtype).max
-    clip = (sub >= np.ceil(NEAR_CLIP_SRGB8 / 255.0 * top)).any(axis=2)
-    left = np.arange(max(0, x0 - gap - strip), max(0, x0 - gap))
-    right = np.arange(min(w, x1 + gap), min(w, x1 + gap + strip))
+    thr = sub.dtype.type(np.ceil(NEAR_CLIP_SRGB8 / 255.0 * top))
+    clip = (sub[..., 0] >= thr) | (sub[..., 1] >= thr) | (sub[..., 2] >= thr)
+    step = max(1, strip // SIDE_STRIP_MAX_COLS)   # a few columns describe the backdrop (speed)
+    left = np.arange(max(0, x0 - gap - strip), max(0, x0 - gap))[::step]
+    right = np.arange(min(w, x1 + gap), min(w, x1 + gap + strip))[::step]
     side = np.concatenate([left, right]) - c0
     return _Window(lin=_to_linear_fast(sub), clip=clip, row0=y0, col0=c0, side_cols=side.astype(int))
 
@@ -528,7 +537,7 @@ def _edge_width_px(y_rows: np.ndarray, col: int, half: int) -> float:
     c0, c1 = max(0, col - half), min(y_rows.shape[1], col + half + 1)
     if c1 - c0 < 3:
         return float("nan")
-    prof = np.median(y_rows[:, c0:c1], axis=0)
+    prof = np.median(y_rows[::3, c0:c1], axis=0)      # every third row: enough for a profile
     step = float(prof.max() - prof.min())
     slope = float(np.abs(np.diff(prof)).max())
     if step <= 1e-4 or slope <= 1e-9:
@@ -631,8 +640,8 @@ def measure_tube(pixels: np.ndarray, region, *, correction=None, mm_per_px: floa
 
     # backdrop beside the tube, row by row
     if win.side_cols.size:
-        beside_y = np.median(y_win[:, win.side_cols], axis=1)
         beside_rgb = np.median(win.lin[:, win.side_cols], axis=1)
+        beside_y = _luminance(beside_rgb)
     else:
         beside_y = np.full(n_rows, np.nan)
         beside_rgb = np.full((n_rows, 3), np.nan)
@@ -647,7 +656,7 @@ def measure_tube(pixels: np.ndarray, region, *, correction=None, mm_per_px: floa
     inner_y = y_win[:, ic0:ic1]
     inner_rgb = win.lin[:, ic0:ic1]
     inner_clip = win.clip[:, ic0:ic1]
-    col_row_y = np.median(inner_y, axis=1)
+    col_row_y = inner_y.mean(axis=1)
 
     # settled solid first: the column stops above it
     pellet, pellet_info = _find_pellet(win, region, correction, mm_per_px, light_rows, dark_rows,
@@ -674,7 +683,7 @@ def measure_tube(pixels: np.ndarray, region, *, correction=None, mm_per_px: floa
     # highlights and clipping within the measured rows
     meas = np.zeros_like(inner_clip)
     meas[use_light] = True
-    med = float(np.median(inner_y[use_light])) if use_light.any() else 0.0
+    med = float(np.median(col_row_y[use_light])) if use_light.any() else 0.0
     highlight = inner_clip | (inner_y > HIGHLIGHT_RATIO * med)
     n_meas = int(meas.sum())
     clipped_fraction = (float((pixels[y0:y1, win.col0 + ic0:win.col0 + ic1][meas]
@@ -902,6 +911,9 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     a0, a1 = max(0, ax - half), min(win.lin.shape[1], ax + half + 1)
     ib = min(region.inner_bottom - y0, win.lin.shape[0] - 1)
     top = (region.liquid_top if region.liquid_top is not None else y0) - y0
+    # rows read: the reference liquid and where a solid can reach, nothing higher (speed)
+    top = max(top, region.bottom_top - y0 - int(round(max(PELLET_REF_SPAN_FRACTION,
+                                                             PELLET_MAX_HEIGHT_FRACTION) * width)) - 1)
     if ib - top < 6 or a1 <= a0:
         return none, info
     strip = win.lin[top:ib + 1, a0:a1]
@@ -947,7 +959,11 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     k_hi = np.minimum(1.0, PELLET_CHORD_TOLERANCE[1] * k_geo)
     shift = max(1, int(round(PELLET_ROW_SHIFT_FRACTION * width)))
     ln_b = np.log(b_rows)
-    dev = _opacity_dev(np.log(np.maximum(row_rgb, 1e-4)), ln_b, a_ref, k_lo, k_hi, shift)
+    # only rows where a settled solid can reach are judged (speed); above them is liquid
+    low = rows >= bt - int(round(PELLET_MAX_HEIGHT_FRACTION * width))
+    dev = np.zeros(rows.size)
+    dev[low] = _opacity_dev(np.log(np.maximum(row_rgb[low], 1e-4)), ln_b[low], a_ref[low],
+                            k_lo[low], k_hi[low], shift)
     fin = np.isfinite(dev)
     dev = np.where(fin, dev, 0.0)
     # bottom-region difference, whatever is there
@@ -967,7 +983,9 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
         # rows where this solid would look like the liquid (a white solid over the light
         # bands, a dark one over the dark bands) can neither confirm nor end it
         ln_s = np.log(np.maximum(np.median(row_rgb[is_solid], axis=0), 1e-4))
-        dev_s = _opacity_dev(np.broadcast_to(ln_s, row_rgb.shape), ln_b, a_ref, k_lo, k_hi, shift)
+        dev_s = np.full(rows.size, np.inf)
+        dev_s[low] = _opacity_dev(np.broadcast_to(ln_s, (int(low.sum()), 3)), ln_b[low], a_ref[low],
+                                  k_lo[low], k_hi[low], shift)
         unknown |= ~is_solid & (dev_s < PELLET_MIN_OPACITY)
     allowed = is_solid | unknown
     last = len(rows) - 1
@@ -1071,8 +1089,8 @@ def _features(region, win, y_win, inner_y, inner_rgb, col_row_y, col_lab, lab_sd
     idx = np.flatnonzero(rows_sel)
     if idx.size >= 4:
         mid = idx.size // 2
-        up = _row_lab(correction, np.median(inner_rgb[idx[:mid]].reshape(-1, 3), axis=0)[None])[0]
-        lo = _row_lab(correction, np.median(inner_rgb[idx[mid:]].reshape(-1, 3), axis=0)[None])[0]
+        up = _row_lab(correction, inner_rgb[idx[:mid]].reshape(-1, 3).mean(axis=0)[None])[0]
+        lo = _row_lab(correction, inner_rgb[idx[mid:]].reshape(-1, 3).mean(axis=0)[None])[0]
         f["col_L_top_minus_bottom"] = float(up[0] - lo[0])
         ry = col_row_y[idx]
         f["col_row_cv"] = float(ry.std() / max(ry.mean(), 1e-6))
@@ -1103,7 +1121,7 @@ def _features(region, win, y_win, inner_y, inner_rgb, col_row_y, col_lab, lab_sd
         f["meniscus_strength"] = float(max(0.0, 1.0 - low / max(ref, 1e-6)))
         above = inner_rgb[:max(0, lt - k)]
         if above.shape[0] >= 2:
-            a_lab = _row_lab(correction, np.median(above.reshape(-1, 3), axis=0)[None])[0]
+            a_lab = _row_lab(correction, np.median(above[::3].reshape(-1, 3), axis=0)[None])[0]
             f["above_liquid_de00"] = float(delta_e00(col_lab, a_lab))
         else:
             f["above_liquid_de00"] = 0.0
