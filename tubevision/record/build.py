@@ -230,6 +230,13 @@ def record_schema() -> dict:
     return json.loads(text)
 
 
+@lru_cache(maxsize=1)
+def _record_validator():
+    import jsonschema
+
+    return jsonschema.Draft202012Validator(record_schema())
+
+
 def validate_record(record: dict, where: str = "record") -> None:
     """Check a record against the shipped JSON Schema.
 
@@ -238,10 +245,7 @@ def validate_record(record: dict, where: str = "record") -> None:
     TubevisionInputError
         The record does not conform; the message names the first failing path.
     """
-    import jsonschema
-
-    validator = jsonschema.Draft202012Validator(record_schema())
-    errors = sorted(validator.iter_errors(record), key=lambda e: list(e.absolute_path))
+    errors = sorted(_record_validator().iter_errors(record), key=lambda e: list(e.absolute_path))
     if errors:
         e = errors[0]
         path = "/".join(str(p) for p in e.absolute_path) or "(top)"
