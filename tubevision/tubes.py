@@ -562,25 +562,27 @@ def _candidates(rot: np.ndarray, valid: np.ndarray) -> list[_Candidate]:
     gxs = _signed_gx(gray)
     w_max = max(MIN_TUBE_WIDTH_PX + 1.0, MAX_TUBE_WIDTH_FRACTION * wd)
     ws, sc = _width_scores(Pn, w_max)
-    best_w, best_total, fallback, best_cands = None, 0.0, [], []
+    ev = _Evidence(rot, valid)
+    # every track at every likely width is a hypothesis that :func:`_verify` confirms or
+    # rejects; tubes differ in apparent width (perspective, two rows at different
+    # distances), so a band of widths round each mode is searched. Where verified
+    # hypotheses overlap, the better supported wins, support growing with the width: the
+    # inside of a tube (specular streaks, the liquid's edges) can mimic a narrower pair,
+    # but nothing narrower mimics a whole tube's walls, rim and bottom.
+    best_w, best_total, best_tubes = None, 0.0, []
     for w in _width_modes(ws, sc):
-        cands = _tracks_at_width(Pn, En, gy, gxs, gray, w)
-        total = sum(c.strength * c.arc for c in cands if c.verified)
-        if not fallback:
-            fallback = cands
+        tubes = _drop_overlapping_tubes(_verify_all(_tracks_at_width(Pn, En, gy, gxs, gray, w), ev))
+        total = sum(t.score for t in tubes)
         if total > best_total:
-            best_w, best_total, best_cands = w, total, cands
+            best_w, best_total, best_tubes = w, total, tubes
     if best_w is None:
-        return fallback
-    # tubes differ in apparent width (perspective, two rows at different distances):
-    # search a band of widths round the best one and keep the best-supported track
-    # wherever several overlap
-    found: list[_Candidate] = []
+        return []
+    found = list(best_tubes)
     for k in range(-WIDTH_SPREAD_STEPS, WIDTH_SPREAD_STEPS + 1):
-        w = best_w * WIDTH_STEP_RATIO ** (2 * k)
-        cands = best_cands if k == 0 else _tracks_at_width(Pn, En, gy, gxs, gray, w)
-        found.extend(c for c in cands if c.verified)
-    return _drop_overlaps(found)
+        if k:
+            w = best_w * WIDTH_STEP_RATIO ** (2 * k)
+            found.extend(_verify_all(_tracks_at_width(Pn, En, gy, gxs, gray, w), ev))
+    return _consistent_rows(_drop_overlapping_tubes(found))
 
 
 def _tracks_at_width(Pn: np.ndarray, En: np.ndarray, gy: np.ndarray, gxs: np.ndarray,
@@ -627,7 +629,376 @@ def _tracks_at_width(Pn: np.ndarray, En: np.ndarray, gy: np.ndarray, gxs: np.nda
         arc = _arc_evidence(En, gray, a, b, w, bottom - w / 2)
         out.append(_Candidate(a=float(a), b=float(b), top=float(top), end=float(bottom - w / 2), w=float(w),
                               strength=float(np.sum(t.v)), verified=arc >= ARC_MIN_EVIDENCE, arc=arc))
-    return _drop_overlaps(out)
+    return out
+
+
+# --------------------------------------------------------------------------
+# Verification of tube hypotheses (step 3b)
+# --------------------------------------------------------------------------
+#
+# A track of wall-pair peaks is only a hypothesis: two backdrop bands, a rack
+# post beside a tube, or the gap between two tubes also give pairs of vertical
+# edges. A hypothesis becomes a tube only when the photo shows what a test tube
+# is made of (geometry of a round-bottom tube, common practice):
+#
+# * two walls, found again across the profile at the outer edges of the glass
+#   (the refined width must agree with the track's width), present over most of
+#   the rows where the backdrop beside the tube is light;
+# * a rim: above it the walls stop (a backdrop band or rack post runs on);
+# * a round bottom: a hemisphere of the tube's radius whose outline is an edge
+#   whose gradient points along the radius (a vertical edge, a band or a post,
+#   has its gradient across the radius there); :func:`_arc_scores`;
+# * a plausible shape: rim to bottom 3-15 widths (test tubes are 5-10 widths
+#   long, common lab sizes; a rack bar may hide part of the wall but not the
+#   ends).
+# Within a rack row the tubes' widths agree (same tube size, perspective makes
+# them differ by ≲ 15 %); an outlier is dropped (:func:`_consistent_rows`).
+
+VERIFY_WIDTH_RATIO = (0.75, 1.3)
+"""Refined width over the track's trial width: outside this the two outermost edges
+found across the profile are not the walls the track was made of."""
+
+WALL_COVERAGE_MIN = 0.55
+"""Smallest fraction of the light-backdrop rows between rim and bottom where both walls
+show (a rack bar in front hides ≲ 25 % of a tube; the rest is noise margin)."""
+
+ABOVE_RIM_MAX = 0.4
+"""Largest fraction of light rows, from 0.8 to 0.1 widths above the rim, where both wall
+edges carry on: more means the edges belong to something longer than a tube."""
+
+WALL_VALLEY_CONTRAST = 0.04
+"""A wall row is a dark line when the darkest sample on the wall is this fraction darker
+(sRGB codes) than both the backdrop just outside and the glass just inside."""
+
+WALL_VALLEY_MIN = 0.25
+"""Smallest fraction of the light rows where both walls are dark lines: the air above the
+liquid and clear liquids show them, dark or cloudy liquids may hide the inner side."""
+
+ABOVE_RIM_LIGHT_MIN = 0.2
+"""Smallest fraction of light-backdrop rows from 0.8 to 0.1 widths above the rim: a rim
+stands free above the rack; walls that start right under a dark bar are a tube's lower
+part (or a gap) seen below it. Dark bands of the printed backdrop are 1/4 of a 16 mm
+tube's width (:data:`tubevision.backdrop.BAND_WIDTH_MM`), so a free rim has ≳ 1/3 light rows."""
+
+BACKDROP_LIKE_FRACTION = 0.75
+"""A row beside the tube looks like the backdrop when, on both sides, it is at least this
+fraction of the median brightness of the same columns beside the tube's body (sRGB codes;
+a rack bar in front is darker)."""
+
+ARC_SCORE_MIN = 0.3
+"""Smallest round-bottom score (:func:`_arc_scores`, 0-1): mean over the lower arc of
+radially oriented edge strength relative to the walls' own strength. A visible bottom
+scores 0.5-1; vertical edges (bands, posts) score ≲ 0.1 (orientation term cos⁴ 45° = 0.25 at
+the arc's ends, 0 at its middle); a horizontal edge touches only the middle of the arc."""
+
+LENGTH_WIDTHS = (3.0, 15.0)
+"""Rim to bottom, in tube widths: test tubes are 5-10 widths long (12×75 to 16×150 mm,
+common lab sizes, from memory); the range leaves margin for perspective."""
+
+ROW_WIDTH_TOLERANCE = 0.25
+"""A tube whose width differs from its row's median by more than this fraction is dropped
+(one tube size per rack row; perspective ≤ 15° changes widths by ≲ 15 %, pinhole geometry)."""
+
+
+class _Evidence:
+    """Gradients of the log grey level of the rotated reduced copy (contrast, not
+    brightness: a wall on a dim part of the photo counts as much as on a bright one)."""
+
+    def __init__(self, rot: np.ndarray, valid: np.ndarray):
+        import cv2
+
+        self.gray = rot.mean(axis=2).astype(np.float32)
+        lg = np.log(self.gray + 4.0).astype(np.float32)     # +4: sRGB codes, keeps dark noise down
+        self.gx = cv2.Sobel(lg, cv2.CV_32F, 1, 0, ksize=3) / 8.0
+        self.gy = cv2.Sobel(lg, cv2.CV_32F, 0, 1, ksize=3) / 8.0
+        self.gx[~valid] = 0.0
+        self.gy[~valid] = 0.0
+        self.ax = np.abs(self.gx)
+        self.valid = valid
+        v = self.ax[valid]
+        self.noise = float(np.median(v)) if v.size else 0.0
+
+
+@dataclass(frozen=True)
+class _Tube:
+    """A verified tube on the rotated reduced copy: axis x = a + b·y, rim row ``top``,
+    hemisphere centre row ``end``, outer width ``w``, and a support ``score``."""
+
+    a: float
+    b: float
+    top: float
+    end: float
+    w: float
+    score: float
+    arc: float = 0.0
+    coverage: float = 0.0
+
+
+def _outer_peak(prof: np.ndarray, us: np.ndarray, lo: float, hi: float, outer_sign: int):
+    """Sub-pixel position of the outermost strong local maximum of ``prof`` over
+    ``lo ≤ u ≤ hi`` (strong: ≥ half the window's maximum), or None."""
+    sel = np.nonzero((us >= lo) & (us <= hi))[0]
+    if sel.size < 3:
+        return None
+    vals = prof[sel]
+    top = float(vals.max())
+    if top <= 0:
+        return None
+    idx = [i for i in sel[1:-1] if prof[i] >= prof[i - 1] and prof[i] >= prof[i + 1] and prof[i] >= 0.5 * top]
+    if not idx:
+        idx = [int(sel[int(np.argmax(vals))])]
+    i = min(idx) if outer_sign < 0 else max(idx)
+    u = float(us[i])
+    if 0 < i < len(prof) - 1:   # parabolic peak interpolation (common practice)
+        a, b, c = prof[i - 1], prof[i], prof[i + 1]
+        den = a - 2 * b + c
+        if den < 0:
+            u += float(np.clip(0.5 * (a - c) / den, -0.5, 0.5))
+    return u
+
+
+def _arc_scores(ev: _Evidence, a: float, b: float, r: float, ycs: np.ndarray, level: float,
+                polarity: float = 0.0) -> np.ndarray:
+    """Round-bottom score for hemisphere centres at rows ``ycs`` (see :data:`ARC_SCORE_MIN`).
+
+    Along the lower arc (40°-140° below the centre) the gradient g is compared with the
+    outward radius n: o = min(|g| / level, 1) · (|g·n| / |g|)⁴, edge strength relative to
+    ``level`` (the walls' gradient), capped at 1, times the agreement of its orientation
+    with the circle's; best within ±1 px of the radius. Arc points on dark backdrop rows are left out (a
+    glass edge does not show there). The score is the weakest of the arc's left, middle
+    and right parts that show; NaN when fewer than two show.
+    """
+    h, wd = ev.gx.shape
+    th = np.radians(np.linspace(40.0, 140.0, 11))
+    nx, ny = np.cos(th), np.sin(th)
+    dr = np.array([-1.0, -0.5, 0.0, 0.5, 1.0])
+    rr = r + dr
+    xc = a + b * ycs
+    X = xc[:, None, None] + rr[None, :, None] * nx[None, None, :]
+    Y = ycs[:, None, None] + rr[None, :, None] * ny[None, None, :]
+    xi = np.clip(np.round(X).astype(int), 0, wd - 1)
+    yi = np.clip(np.round(Y).astype(int), 0, h - 1)
+    gx, gy = ev.gx[yi, xi], ev.gy[yi, xi]
+    proj = gx * nx + gy * ny
+    # the bottom's outline is the same glass-against-backdrop edge as the walls: the
+    # same sign of the outward gradient (when the walls agree on one)
+    proj = np.abs(proj) if polarity == 0 else np.maximum(polarity * proj, 0.0)
+    mag = np.sqrt(gx * gx + gy * gy) + 1e-6
+    o = np.minimum(mag / max(level, 1e-6), 1.0) * (proj / mag) ** 4
+    o = o.max(axis=1)                                               # (n_yc, n_theta)
+    # light backdrop beside the arc point's row
+    yrow = np.clip(np.round(ycs[:, None] + r * ny[None, :]).astype(int), 0, h - 1)
+    xl = np.clip(np.round(xc[:, None] - 1.4 * r).astype(int), 0, wd - 1)
+    xr = np.clip(np.round(xc[:, None] + 1.4 * r).astype(int), 0, wd - 1)
+    beside = np.maximum(ev.gray[yrow, xl], ev.gray[yrow, xr])
+    ref = float(np.percentile(beside, 90)) if beside.size else 0.0
+    light = beside >= LIGHT_ROW_FRACTION * max(ref, 1e-6)
+    # the score is the weakest of three parts of the arc (left, middle, right): a
+    # horizontal edge (rack base, bar, band) supports only the middle
+    parts = (th < np.radians(65)), (np.abs(th - np.pi / 2) < np.radians(25)), (th > np.radians(115))
+    scores = []
+    for part in parts:
+        lp = light & part[None, :]
+        n = lp.sum(axis=1)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            sc = np.where(lp, o, 0.0).sum(axis=1) / n
+        sc[n < 2] = np.nan
+        scores.append(sc)
+    scores = np.vstack(scores)
+    n_parts = np.isfinite(scores).sum(axis=0)
+    score = np.full(ycs.shape, np.nan)
+    ok = n_parts >= 2
+    score[ok] = np.nanmin(scores[:, ok], axis=0)
+    return score
+
+
+POLARITY = False
+_TRACE: list | None = None
+"""Set to a list to collect (hypothesis, line) of each rejection (diagnostics only)."""
+
+
+def _reject(c, where: int) -> None:
+    if _TRACE is not None:
+        _TRACE.append((c, where))
+
+
+def _verify(c, ev: _Evidence, out: list, pending: list) -> None:
+    """Test one hypothesis (see the comment above :data:`VERIFY_WIDTH_RATIO`); append a
+    :class:`_Tube` to ``out`` when it holds. A track that runs on past a round bottom
+    (two rack rows) is split: the rest goes to ``pending``."""
+    h, wd = ev.gx.shape
+    w = float(c.w)
+    ya, yb = int(max(0, np.floor(c.top - w))), int(min(h, np.ceil(c.end + w)))
+    rows = np.arange(ya, yb)
+    if rows.size < LENGTH_WIDTHS[0] * w:
+        return _reject(c, 9)
+    half = int(np.ceil(0.8 * w))
+    us = np.arange(-half, half + 1)
+    xc = c.a + c.b * rows
+    X = np.clip(np.round(xc[:, None] + us[None, :]).astype(int), 0, wd - 1)
+    AX = ev.ax[rows[:, None], X]
+    G = ev.gray[rows[:, None], X]
+    outside = np.abs(us) >= 0.62 * w
+    beside = np.maximum(G[:, outside & (us < 0)].mean(axis=1), G[:, outside & (us > 0)].mean(axis=1))
+    core = (rows >= c.top) & (rows < c.end)
+    ref = float(np.percentile(beside[core], 90)) if core.any() else 0.0
+    light = (beside >= LIGHT_ROW_FRACTION * max(ref, 1e-6)) & ev.valid[rows, np.clip(np.round(xc).astype(int), 0, wd - 1)]
+    sel = core & light
+    if sel.sum() < 2 * w:
+        return _reject(c, 23)
+    prof = np.percentile(AX[sel], 60, axis=0)
+    ul = _outer_peak(prof, us, -0.75 * w, -0.3 * w, -1)
+    ur = _outer_peak(prof, us, 0.3 * w, 0.75 * w, +1)
+    if ul is None or ur is None:
+        return _reject(c, 28)
+    w2 = ur - ul
+    if not VERIFY_WIDTH_RATIO[0] <= w2 / w <= VERIFY_WIDTH_RATIO[1] or w2 < MIN_TUBE_WIDTH_PX:
+        return _reject(c, 31)
+    shift = 0.5 * (ul + ur)
+    il, ir = int(np.argmin(np.abs(us - ul))), int(np.argmin(np.abs(us - ur)))
+    el = AX[:, max(0, il - 1):il + 2].max(axis=1)
+    er = AX[:, max(0, ir - 1):ir + 2].max(axis=1)
+    both = np.minimum(el, er)
+    level = float(np.median(both[sel]))
+    thr = max(0.35 * level, 3.0 * ev.noise)
+    if level <= thr:
+        return _reject(c, 40)
+    on = (el > thr) & (er > thr)
+    # glass walls are thin dark lines (refraction at grazing incidence, common practice):
+    # darker than both the backdrop outside and the glass inside, at least in the rows of
+    # air or clear liquid; a step edge (a rack post, a backdrop band) is not
+    m = max(2, int(round(0.06 * w2)))
+    valley = np.ones(rows.size, bool)
+    for u_wall, sgn in ((ul, -1), (ur, 1)):
+        cu = lambda u: int(np.clip(np.argmin(np.abs(us - u)), 0, us.size - 1))  # noqa: E731
+        line = G[:, min(cu(u_wall), cu(u_wall - sgn * m)):max(cu(u_wall), cu(u_wall - sgn * m)) + 1].min(axis=1)
+        out_v = G[:, cu(u_wall + sgn * m)]
+        in_v = G[:, cu(u_wall - sgn * 2 * m)]
+        valley &= np.minimum(out_v, in_v) - line > WALL_VALLEY_CONTRAST * out_v
+    if valley[sel].mean() < WALL_VALLEY_MIN:
+        return _reject(c, 54)
+    # rim: first row with both walls that starts a run where they mostly stay
+    k = max(3, int(round(0.4 * w)))
+    on_l = (on | ~light).astype(float)
+    run = np.convolve(on_l, np.ones(k), mode="full")[k - 1:k - 1 + on_l.size] / k   # mean of on_l[i:i+k]
+    lim = int(np.searchsorted(rows, c.top + w))
+    starts = np.nonzero(on[:lim] & (run[:lim] >= 0.8))[0]
+    if starts.size == 0:
+        return _reject(c, 62)
+    i_rim = int(starts[0])
+    rim = float(rows[i_rim])
+    near = (rows >= rim - 0.8 * w) & (rows < rim - 0.1 * w)
+    # on both sides, as bright as the same columns beside the tube's body (a vertical
+    # band keeps its brightness; a bar in front does not)
+    backdrop_like = np.ones(rows.size, bool)
+    for side in (outside & (us < 0), outside & (us > 0)):
+        g_side = G[:, side].mean(axis=1)
+        backdrop_like &= g_side >= BACKDROP_LIKE_FRACTION * max(float(np.median(g_side[core])), 1e-6)
+    if near.sum() >= 3 and backdrop_like[near].mean() < ABOVE_RIM_LIGHT_MIN:
+        return          # the "rim" is the lower edge of something dark in front (a rack bar)
+    above = near & light
+    if above.sum() >= 3 and on[above].mean() > ABOVE_RIM_MAX:
+        return _reject(c, 76)
+    a2 = c.a + shift
+    r = 0.5 * w2
+    # round bottom: the first strong arc (from the rim down) below which the walls stop
+    # and do not resume within 1.4 widths (an occluding bar hides them for less; the next
+    # rack row starts lower)
+    gl = float(np.median(-ev.gx[rows[sel], np.clip(np.round(xc[sel] + ul).astype(int), 0, wd - 1)]))
+    gr = float(np.median(ev.gx[rows[sel], np.clip(np.round(xc[sel] + ur).astype(int), 0, wd - 1)]))
+    polarity = float(np.sign(gl)) if (POLARITY and np.sign(gl) == np.sign(gr)) else 0.0
+    y_lo, y_hi = rim + LENGTH_WIDTHS[0] * w2 - r, min(h - 1 - r, rim + LENGTH_WIDTHS[1] * w2)
+    if y_hi <= y_lo:
+        return _reject(c, 87)
+    ycs = np.arange(np.ceil(y_lo), np.floor(y_hi) + 1)
+    if ycs.size == 0:
+        return _reject(c, 90)
+    # walls beyond the sampled rows: extend the row evidence down to y_hi + 2.5 w
+    ext = np.arange(yb, int(min(h, y_hi + r + 1.5 * w2)))
+    if ext.size:
+        xe = c.a + c.b * ext
+        def _e(u):  # noqa: E306
+            cols = np.clip(np.round(xe[:, None] + u + np.arange(-1, 2)[None, :]).astype(int), 0, wd - 1)
+            return ev.ax[ext[:, None], cols].max(axis=1)
+        on = np.concatenate([on, (_e(us[il]) > thr) & (_e(us[ir]) > thr)])
+        rows = np.concatenate([rows, ext])
+    arc = _arc_scores(ev, a2, c.b, r, ycs, level, polarity)
+    arc_f = np.nan_to_num(arc, nan=0.0)
+    chosen = None
+    for j in range(ycs.size):
+        if arc_f[j] < ARC_SCORE_MIN or (j > 0 and arc_f[j - 1] > arc_f[j]) or \
+                (j + 1 < ycs.size and arc_f[j + 1] > arc_f[j]):
+            continue
+        yc = ycs[j]
+        below = (rows >= yc + 1.1 * r) & (rows < yc + 1.8 * r)
+        later = (rows >= yc + r + 0.9 * w2) & (rows < yc + r + 1.4 * w2)
+        if below.any() and on[below].mean() < 0.3 and not (later.any() and on[later].mean() >= 0.5):
+            chosen = j
+            break
+    if chosen is None:
+        return _reject(c, 114)
+    yc = float(ycs[chosen])
+    length = yc + r - rim
+    if not LENGTH_WIDTHS[0] <= length / w2 <= LENGTH_WIDTHS[1]:
+        return _reject(c, 118)
+    span = (rows >= rim) & (rows < yc) & np.concatenate([light, np.zeros(rows.size - light.size, bool)])
+    coverage = float(on[span].mean()) if span.any() else 0.0
+    if coverage < WALL_COVERAGE_MIN:
+        return _reject(c, 122)
+    arc_v = float(arc_f[chosen])
+    out.append(_Tube(a=float(a2), b=float(c.b), top=rim, end=yc, w=float(w2),
+                     score=float(level * coverage * (0.5 + arc_v) * length * w2 * w2),
+                     arc=arc_v, coverage=coverage))
+    if c.end - (yc + r) > LENGTH_WIDTHS[0] * w:
+        pending.append(_Candidate(a=c.a, b=c.b, top=yc + 1.6 * w, end=c.end, w=c.w, strength=c.strength))
+
+
+def _verify_all(cands, ev: _Evidence) -> list[_Tube]:
+    out: list[_Tube] = []
+    pending = list(cands)
+    while pending:
+        _verify(pending.pop(), ev, out, pending)
+    return out
+
+
+def _drop_overlapping_tubes(tubes: list[_Tube]) -> list[_Tube]:
+    """Where two tubes overlap (rows overlap and their axes are closer than the mean
+    half-width sum: tubes in a rack stand side by side), keep the better supported."""
+    def clash(t, k):
+        y0, y1 = max(t.top, k.top), min(t.end, k.end)
+        if y1 <= y0:
+            return False
+        ym = (y0 + y1) / 2
+        return abs((t.a + t.b * ym) - (k.a + k.b * ym)) < 0.45 * (t.w + k.w)
+
+    keep: list[_Tube] = []
+    for t in sorted(tubes, key=lambda t: -t.score):
+        if not any(clash(t, k) for k in keep):
+            keep.append(t)
+    return keep
+
+
+def _up_box(t: _Tube) -> BBox:
+    xm = t.a + t.b * (t.top + t.end) / 2
+    return (int(xm - t.w / 2), int(t.top), int(xm + t.w / 2) + 1, int(t.end + t.w / 2) + 1)
+
+
+def _consistent_rows(tubes: list[_Tube]) -> list[_Tube]:
+    """Drop tubes whose width is off their rack row's median (:data:`ROW_WIDTH_TOLERANCE`)."""
+    if len(tubes) < 3:
+        return tubes
+    order = reading_order([_up_box(t) for t in tubes])
+    rows: dict[int, list[int]] = {}
+    for i, r in order:
+        rows.setdefault(r, []).append(i)
+    keep = []
+    for members in rows.values():
+        ws = np.array([tubes[i].w for i in members])
+        med = float(np.median(ws))
+        for i in members:
+            if len(members) < 3 or abs(tubes[i].w / med - 1.0) <= ROW_WIDTH_TOLERANCE:
+                keep.append(tubes[i])
+    return keep
 
 
 def _signed_gx(gray: np.ndarray) -> np.ndarray:
@@ -906,13 +1277,13 @@ def _refine_full(pixels: np.ndarray, cand: _Candidate, A: np.ndarray, index_hint
     def at(v, u=0.0):
         return o + (0.9 * w_full + u) * n + v * dv
 
-    rim_l, rim_r = at(v_rim, -0.53 * w_full), at(v_rim, 0.53 * w_full)
+    rim_l, rim_r = at(v_rim, -0.5 * w_full), at(v_rim, 0.5 * w_full)
     centre = at(v_centre)
     r = 0.5 * w_full
     xs = [rim_l[0], rim_r[0], centre[0] - r, centre[0] + r]
     ys = [rim_l[1], rim_r[1], centre[1] - r, centre[1] + r]
     x0, y0 = max(0, int(np.floor(min(xs)))), max(0, int(np.floor(min(ys))))
-    x1, y1 = min(w_img, int(np.ceil(max(xs))) + 1), min(h, int(np.ceil(max(ys))) + 1)
+    x1, y1 = min(w_img, int(np.ceil(max(xs)))), min(h, int(np.ceil(max(ys))))
     lt_pt = None if v_lt is None else at(v_lt)
     mid_v = (v_lt if v_lt is not None else v_rim) * 0.5 + v_centre * 0.5
     axis_mid = at(mid_v)
