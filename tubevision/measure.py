@@ -198,8 +198,19 @@ PELLET_MAX_HEIGHT_FRACTION = 1.0
 """Settled solid is looked for up to this × the tube width above the round bottom's start
 (a solid ~1.5 diameters high; more is a packed tube, not a pellet)."""
 
-PELLET_K_STEPS = 9
+PELLET_BOTTOM_SHIFT_FRACTION = 0.03
+"""The same, for rows through the round bottom, whose glass and liquid form a lens curved in
+both directions that shifts the band edges behind vertically too (chosen: 8 px on 100)."""
+
+PELLET_K_STEPS = 7
 """Grid of chord ratios tried per row in :func:`_opacity_dev`."""
+
+PELLET_CHANNEL_WEIGHTS = np.array([0.25, 0.25, 0.25, 1.0])
+"""Weights of R, G, B and luminance Y in the opacity measure: opacity is foremost a matter
+of how much light comes through (Y); the colour channels count half, because JPEG stores
+colour at half resolution (4:2:0 subsampling, ITU-T T.81 / JFIF common practice) so it
+bleeds across band edges, and a phone's colour processing is less linear than its
+luminance (chosen)."""
 
 PELLET_MAX_ABSORBANCE = 3.0
 """Apparent absorbances (natural log) are capped here: transmission below e⁻³ ≈ 5 %."""
@@ -867,36 +878,52 @@ def _turbidity(inner_y, inner_rgb, good, use_light, use_dark, beside_y, beside_r
     return dict(value=max(0.0, raw), raw=raw, sd=sd, ratio=1.0, method="plain-veil")
 
 
-def _opacity_dev(ln_i, ln_b, a_ref, k_lo, k_hi, shift: int) -> np.ndarray:
+def _opacity_dev(ln_i, ln_b, a_ref, k_lo, k_hi, shift) -> np.ndarray:
     """Per row, how far the light seen through the tube is from any liquid-like reading.
 
     ``ln_i`` (n, 3) log of the light through the tube, ``ln_b`` (n, 3) log of the backdrop
     beside it, ``a_ref`` (n, 3) the liquid's full-chord absorbance −ln(I/B) predicted for
     each row's backdrop. A liquid row satisfies −ln(I/B) = k·a_ref for one k in
     [k_lo, k_hi] (Beer–Lambert over the row's chord). Returned: the smallest max-channel
-    |difference| over k (a grid of :data:`PELLET_K_STEPS`), where for each k the
-    prediction may be anything between its values for the beside readings up to
-    ``shift`` rows away (the view through the tube and the strip beside it may be out of
-    register, or blurred differently, by a pixel or two at band edges: lean, parallax,
-    the tube's own lens).
+    |difference| (channels weighted by :data:`PELLET_CHANNEL_WEIGHTS`) over k (a grid of
+    :data:`PELLET_K_STEPS`) and over the beside readings up to ``shift`` rows away (per
+    row): the view through the tube and the strip beside it may be out of register by a
+    pixel or two at band edges (lean, parallax, the tube's own lens).
     Absorbances are capped at :data:`PELLET_MAX_ABSORBANCE`: below ~5 % transmission a
     camera's flare, noise and tone curve leave no reliable reading (common practice).
     """
-    n = ln_i.shape[0]
+    n, nc = ln_i.shape
     kk = k_lo[:, None] + (k_hi - k_lo)[:, None] * np.linspace(0.0, 1.0, PELLET_K_STEPS)[None, :]   # (n, K)
+    shift = np.broadcast_to(np.asarray(shift, dtype=int), (n,))
+    w = PELLET_CHANNEL_WEIGHTS[:nc]
+
+    def dev_at(rows_i, j):
+        # predicted log light through the liquid, given the backdrop reading of row j
+        pred = ln_b[j][:, None, :] - np.minimum(kk[rows_i][:, :, None] * a_ref[j][:, None, :],
+                                                PELLET_MAX_ABSORBANCE)
+        obs = np.maximum(ln_i[rows_i], ln_b[j] - PELLET_MAX_ABSORBANCE)[:, None, :]  # darker reads as the cap
+        return (np.abs(obs - pred) * w).max(axis=2).min(axis=1)
+
     idx = np.arange(n)
-    lo = np.full((n, kk.shape[1], 3), np.inf)
-    hi = np.full((n, kk.shape[1], 3), -np.inf)
-    for s in range(-shift, shift + 1):
-        j = np.clip(idx + s, 0, n - 1)
-        # predicted log light through the liquid, given the backdrop of row j
-        pred = ln_b[j][:, None, :] - np.minimum(kk[:, :, None] * a_ref[j][:, None, :], PELLET_MAX_ABSORBANCE)
-        lo = np.minimum(lo, pred)
-        hi = np.maximum(hi, pred)
-    floor = (ln_b - PELLET_MAX_ABSORBANCE)[:, None, :]          # darker than this reads as this
-    obs = np.maximum(ln_i[:, None, :], np.minimum(floor, lo))
-    d = np.maximum(np.maximum(lo - obs, obs - hi), 0.0)          # distance outside the hull
-    return d.max(axis=2).min(axis=1)
+    best = dev_at(idx, idx)
+    # other registrations matter only near a band edge (the backdrop changes within reach)
+    m = int(shift.max())
+    if m > 0 and n > 1:
+        from scipy.ndimage import maximum_filter1d, minimum_filter1d
+
+        y = ln_b[:, -1]
+        span = maximum_filter1d(y, 2 * m + 1, mode="nearest") - minimum_filter1d(y, 2 * m + 1, mode="nearest")
+        near = np.flatnonzero(span > 0.5 * PELLET_MIN_OPACITY)
+        if near.size:
+            sub = best[near]
+            for s_ in range(-m, m + 1):
+                if s_ == 0:
+                    continue
+                ok = np.abs(s_) <= shift[near]
+                j = np.clip(near + s_, 0, n - 1)
+                sub = np.where(ok, np.minimum(sub, dev_at(near, j)), sub)
+            best[near] = sub
+    return best
 
 
 def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_rows, banded, beside_y,
@@ -942,28 +969,34 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     # I = T·B + S (module docstring) from its light and dark reference rows, so the
     # prediction holds for any backdrop level B, band edges included; over the round
     # bottom's shorter chord its absorbance scales by k (Beer–Lambert).
-    b_rows = np.maximum(beside_rgb[rows], 1e-4)
-    absorb = -np.log(np.maximum(row_rgb, 1e-4) / b_rows)                       # (n, 3)
-    i_l, b_l = np.median(row_rgb[use_l], axis=0), np.median(b_rows[use_l], axis=0)
+    # Channels: R, G, B and luminance Y; see PELLET_CHANNEL_WEIGHTS.
+    i4 = np.concatenate([row_rgb, (row_rgb @ _Y_WEIGHTS)[:, None]], axis=1)
+    b_rgb4 = beside_rgb[rows]
+    b_rows = np.maximum(np.concatenate([b_rgb4, (b_rgb4 @ _Y_WEIGHTS)[:, None]], axis=1), 1e-4)
+    absorb = -np.log(np.maximum(i4, 1e-4) / b_rows)                            # (n, 4)
+    i_l, b_l = np.median(i4[use_l], axis=0), np.median(b_rows[use_l], axis=0)
     if have_dark:
-        i_d, b_d = np.median(row_rgb[ref_dark_sel], axis=0), np.median(b_rows[ref_dark_sel], axis=0)
+        i_d, b_d = np.median(i4[ref_dark_sel], axis=0), np.median(b_rows[ref_dark_sel], axis=0)
         t_c = np.clip((i_l - i_d) / np.maximum(b_l - b_d, 1e-4), 1e-4, None)
         s_c = np.clip(i_l - t_c * b_l, 0.0, None)
     else:
-        t_c, s_c = i_l / np.maximum(b_l, 1e-4), np.zeros(3)
-    a_ref = -np.log(np.maximum(t_c * b_rows + s_c, 1e-4) / b_rows)              # (n, 3)
+        t_c, s_c = i_l / np.maximum(b_l, 1e-4), np.zeros(4)
+    a_ref = -np.log(np.maximum(t_c * b_rows + s_c, 1e-4) / b_rows)              # (n, 4)
     r_in = max(1.0, float(region.inner_bottom - region.bottom_top))
     h = (region.inner_bottom - y0) + 0.5 - rows
     k_geo = np.sqrt(np.clip(1.0 - (1.0 - np.clip(h / r_in, 0.0, 1.0)) ** 2, 0.0, 1.0))
     k_lo = PELLET_CHORD_TOLERANCE[0] * k_geo
     k_hi = np.minimum(1.0, PELLET_CHORD_TOLERANCE[1] * k_geo)
-    shift = max(1, int(round(PELLET_ROW_SHIFT_FRACTION * width)))
+    # rows through the round bottom see the backdrop through a lens curved both ways, so
+    # the band edges behind may appear several rows off there
+    shift = np.where(rows >= bt, max(1, int(round(PELLET_BOTTOM_SHIFT_FRACTION * width))),
+                     max(1, int(round(PELLET_ROW_SHIFT_FRACTION * width))))
     ln_b = np.log(b_rows)
     # only rows where a settled solid can reach are judged (speed); above them is liquid
     low = rows >= bt - int(round(PELLET_MAX_HEIGHT_FRACTION * width))
     dev = np.zeros(rows.size)
-    dev[low] = _opacity_dev(np.log(np.maximum(row_rgb[low], 1e-4)), ln_b[low], a_ref[low],
-                            k_lo[low], k_hi[low], shift)
+    dev[low] = _opacity_dev(np.log(np.maximum(i4[low], 1e-4)), ln_b[low], a_ref[low],
+                            k_lo[low], k_hi[low], shift[low])
     fin = np.isfinite(dev)
     dev = np.where(fin, dev, 0.0)
     # bottom-region difference, whatever is there
@@ -982,10 +1015,10 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     if is_solid.any():
         # rows where this solid would look like the liquid (a white solid over the light
         # bands, a dark one over the dark bands) can neither confirm nor end it
-        ln_s = np.log(np.maximum(np.median(row_rgb[is_solid], axis=0), 1e-4))
+        ln_s = np.log(np.maximum(np.median(i4[is_solid], axis=0), 1e-4))
         dev_s = np.full(rows.size, np.inf)
-        dev_s[low] = _opacity_dev(np.broadcast_to(ln_s, (int(low.sum()), 3)), ln_b[low], a_ref[low],
-                                  k_lo[low], k_hi[low], shift)
+        dev_s[low] = _opacity_dev(np.broadcast_to(ln_s, (int(low.sum()), 4)), ln_b[low], a_ref[low],
+                                  k_lo[low], k_hi[low], shift[low])
         unknown |= ~is_solid & (dev_s < PELLET_MIN_OPACITY)
     allowed = is_solid | unknown
     last = len(rows) - 1
