@@ -20,9 +20,11 @@ leaves out:
   median;
 * the meniscus: :data:`MENISCUS_SKIP_FRACTION` of the tube width below
   ``liquid_top``;
-* things in front of the tube (the rack's bar) and its shadow: rows whose
-  robust level is below :data:`OCCLUDED_ROW_FRACTION` × the column's level,
-  and, on a banded backdrop, dark runs much longer than the backdrop's bands;
+* things in front of the tube (the rack's bar, a label, a finger), of any colour: rows
+  where the glass walls' lines vanish (:func:`_occluder_rows`: an object in front hides
+  both walls), with a margin for its edges and shadow; and rows whose level is below
+  :data:`OCCLUDED_ROW_FRACTION` × the column's level (shadows), and, on a banded backdrop,
+  dark runs much longer than the backdrop's bands;
 * the settled solid, when one is found, with a margin above it;
 * where the backdrop is banded, every row where the backdrop *beside* the
   tube (strips left and right of the glass) is dark, with a margin of rows
@@ -55,10 +57,12 @@ backdrop strips beside the glass, in the same rows. τ is dimensionless (an
 optical-depth-like "veil depth", written "1"), 0 means no scattering (clear
 liquid, coloured or not), and with the model above
 τ = ln(1 + 2S / (T·(R_L + R_D))), which rises monotonically with suspended
-solid (S grows and T falls). It is estimated from row medians; its standard
-deviation comes from a seeded bootstrap over rows (:data:`BOOTSTRAP_SEED`,
-:data:`BOOTSTRAP_N`); the raw estimate can be slightly negative from noise
-and is reported clipped at 0 only after the sd is taken.
+solid (S grows and T falls). Each row is summarised by the mean of its central-third
+pixels without highlights, and τ uses the medians of those row values over the light and
+the dark rows. Its standard deviation is analytic: the standard error of each median
+(sqrt(π/2)·σ/sqrt(n), σ from the MAD) propagated through the formula to first order
+(JCGM 100:2008 GUM §5.1), floored at :data:`TURBIDITY_SD_FLOOR`; the raw estimate can be
+slightly negative from noise and is reported clipped at 0 only after the sd is taken.
 
 On a plain light backdrop there is no dark reference behind the tube, so the
 stage falls back on the veil alone: with the same model, ``q = I/B`` (column
@@ -72,16 +76,40 @@ tube carries a warning saying so, and the banded backdrop is recommended.
 
 Settled solid
 -------------
-An opaque layer at the bottom: rows along the tube's axis, from the inside
-bottom (``inner_bottom``) upward, whose colour differs from the liquid just
-above by at least :data:`PELLET_MIN_CONTRAST_DE00` (CIEDE2000), forming one
-run from the bottom at least :data:`PELLET_MIN_HEIGHT_MM` high (or
-:data:`PELLET_MIN_HEIGHT_PX` without a scale). On a banded backdrop the run
-must also be opaque: its rows must not follow the backdrop's band pattern
-beside the tube (:data:`PELLET_MAX_BAND_FOLLOW`). The height is measured on
-the axis from the inside bottom of the glass to the sub-row position where
-the colour difference crosses half-way between solid and liquid, times the
-card's mm_per_px.
+A distinct opaque layer at the bottom. Darker or coloured liquid is not a solid: a
+liquid, coloured or cloudy, only changes the light from behind it (absorbs, or adds a
+veil), in proportion to its path; an opaque layer shows its own colour whatever lies
+behind it. So, along a strip on the tube's axis, for each row from the inside bottom
+(``inner_bottom``) up to :data:`PELLET_MAX_HEIGHT_FRACTION` widths above the round bottom:
+
+1. the apparent absorbance A = −ln(I/B) of R, G, B and luminance is taken, I the light
+   through the tube, B the backdrop beside it in the same row;
+2. the liquid above is modelled per channel as I = T·B + S from its reference rows (light
+   and dark bands: T its transmittance, S its veil), which predicts its absorbance
+   A_liq(B) for any row's backdrop, band edges included;
+3. in the round bottom the chord is shorter, by k = sqrt(1 − (1 − h/r)²) at height h for a
+   hemisphere of inner radius r (geometry); a liquid there reads A = k'·A_liq with k' in
+   :data:`PELLET_CHORD_TOLERANCE` × k (Beer–Lambert: absorbance ∝ path);
+4. a row is opaque when no such k' (and no registration of the backdrop reading within a
+   few rows at band edges) brings A within :data:`PELLET_MIN_OPACITY` of the liquid's
+   (:func:`_opacity_dev`; colour channels weighted by :data:`PELLET_CHANNEL_WEIGHTS`).
+
+The solid is one run of opaque rows from the bottom upward, at least
+:data:`PELLET_MIN_HEIGHT_MM` high (or :data:`PELLET_MIN_HEIGHT_PX` without a scale);
+rows where this solid would look like the liquid (a white solid over a light band) and
+the lowest rows (the glass bottom's dark edge, :data:`PELLET_BOTTOM_SKIP_FRACTION`) can
+neither confirm nor end it. It must also be distinct — its colour at least
+:data:`PELLET_MIN_CONTRAST_DE00` (CIEDE2000) from the liquid's over the light or the dark
+bands — and, where it spans light and dark bands, opaque to them: the band step seen
+through it at most :data:`PELLET_MAX_BAND_FOLLOW` of the step the liquid transmits. A
+white solid on a plain white backdrop has nothing to show its opacity against and is not
+found; the banded backdrop shows it in its dark bands.
+
+The height is measured on the axis from the inside bottom of the glass to the sub-row
+position where the opacity measure crosses half-way between solid and liquid (the middle
+of the undecidable rows when the top lies in a band where solid and liquid look alike),
+times the scale. The scale should be the card's at the tube's position
+(:func:`mm_per_px_at`, through the card's homography), not only at the card.
 
 Uncertainty
 -----------
@@ -89,9 +117,13 @@ Uncertainty
 card fit's mean residual ΔE00 (a stated term, 0 for the uncalibrated sRGB
 assumption, whose error is unknown); ``colour_uncertainty_de00`` combines
 them as sqrt(ΔE_sem² + ΔE_cal²), with ΔE_sem the CIE76 length of
-``lab_sem``. The pellet height's sd combines the edge position's sd (from
-the edge's width) with :data:`INNER_BOTTOM_SD_PX` for the glass bottom's
-position.
+``lab_sem``. The pellet height's sd combines the edge position's sd (quantisation,
+or the span of undecidable rows / sqrt(12)) with :data:`INNER_BOTTOM_SD_PX` for the glass
+bottom's position.
+
+Speed: only the window around each tube and the beside strips is converted to linear light
+(an 8-bit table lookup); row statistics are vectorised; the solid is looked for only in
+the rows it can reach.
 """
 
 from __future__ import annotations
@@ -375,8 +407,6 @@ class TubeMeasurement:
 
 # --------------------------------------------------------------------------- helpers
 
-_DEBUG = None
-
 _Y_WEIGHTS = np.asarray(M_SRGB_TO_XYZ[1], dtype=np.float32)
 
 
@@ -534,11 +564,6 @@ def _lab_stats(correction, rgb: np.ndarray, n_eff: int):
 def _row_lab(correction, rgb_rows: np.ndarray) -> np.ndarray:
     """Lab of per-row linear RGB medians (R, 3)."""
     return xyz_to_lab(np.clip(_to_xyz(correction, rgb_rows), 0.0, None))
-
-
-def _michelson(light: np.ndarray, dark: np.ndarray) -> float:
-    lo, da = float(np.median(light)), float(np.median(dark))
-    return (lo - da) / max(lo + da, 1e-9)
 
 
 def _edge_width_px(y_rows: np.ndarray, col: int, half: int) -> float:
@@ -1002,8 +1027,6 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     # bottom-region difference, whatever is there
     bsel = rows >= bt
     info["bottom_de"] = float(np.median(de[bsel])) if bsel.any() else 0.0
-    if _DEBUG is not None:
-        _DEBUG.append(dict(absorb=absorb, pred=a_ref, rows=rows, de=de, dev=dev, light=cls_light, dark=cls_dark, k=k_geo, kgeo=k_geo))
     # one run from the bottom upward
     skip = max(1, int(round(PELLET_BOTTOM_SKIP_FRACTION * width)))
     is_solid = (dev >= PELLET_MIN_OPACITY) & fin
