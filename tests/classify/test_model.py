@@ -15,7 +15,8 @@ import pytest
 from tubevision.classify import TubeCall, classify_tube, load_model
 from tubevision.classify.calls import OUT_OF_RANGE_MAX_CONFIDENCE, RULES_CONFIDENCE
 from tubevision.classify.forest import forest_predict_proba, model_from_dict, model_to_dict
-from tubevision.classify.train import FOREST_MAX_DEPTH, FOREST_MIN_SAMPLES_LEAF, fit_state_model, write_model
+from tubevision.classify.train import (FOREST_MAX_DEPTH, FOREST_MAX_FEATURES, FOREST_MIN_SAMPLES_LEAF, fit_state_model,
+                                       write_model)
 from tubevision.errors import TubevisionInputError
 from tubevision.measure import LiquidMeasurement, PelletMeasurement, TubeMeasurement
 
@@ -62,7 +63,8 @@ def test_numpy_forest_equals_sklearn_predict_proba(toy_model):
 
     X, y = _toy_table()  # noqa: N806
     clf = RandomForestClassifier(n_estimators=15, max_depth=FOREST_MAX_DEPTH, min_samples_leaf=FOREST_MIN_SAMPLES_LEAF,
-                                 class_weight="balanced", random_state=11, n_jobs=1).fit(X, y)
+                                 max_features=FOREST_MAX_FEATURES, class_weight="balanced", random_state=11,
+                                 n_jobs=1).fit(X, y)
     Xq, _ = _toy_table(200, seed=99)  # noqa: N806
     ours = forest_predict_proba(toy_model, Xq)
     np.testing.assert_allclose(ours, clf.predict_proba(Xq), atol=1e-9)

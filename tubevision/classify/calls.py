@@ -47,6 +47,7 @@ __all__ = [
     "COLOUR_MIN_SHARE",
     "RULE_CLOUDY_TURBIDITY",
     "RULE_PELLET_MIN_HEIGHT_MM",
+    "RULE_PELLET_MIN_CONTRAST_DE00",
     "RULES_CONFIDENCE",
     "TubeCall",
     "load_model",
@@ -83,15 +84,26 @@ COLOUR_MIN_SHARE = 0.6
 """A colour word with less than this share of its blurred colour is borderline
 and warned about (our choice)."""
 
-RULE_CLOUDY_TURBIDITY = 0.1
+RULE_CLOUDY_TURBIDITY = 0.4
 """Rule fallback only: turbidity above which the liquid is called cloudy.
 
-Set on the studio training table (``calibration/state_training.csv``): the
-gap between the highest clear and the lowest cloudy turbidity there."""
+Chosen on the studio table (``calibration/state_training.csv``): above the
+95th percentile of the clear tubes' measured turbidity (0.32 there), so that
+clear liquids are not called cloudy; faint clouds below it are missed, which
+is why the rules never claim more than :data:`RULES_CONFIDENCE`."""
 
-RULE_PELLET_MIN_HEIGHT_MM = 0.5
+RULE_PELLET_MIN_HEIGHT_MM = 1.0
 """Rule fallback only: a settled solid lower than this (mm) is not counted (our
-choice: about the height of the glass's own bottom reflection in the studio)."""
+choice: the glass's own round bottom and its reflections read as up to about
+1.2 mm of "solid" in the studio table's clear tubes at their 90th percentile)."""
+
+RULE_PELLET_MIN_CONTRAST_DE00 = 20.0
+"""Rule fallback only: a settled solid must differ from the liquid above it by at
+least this CIEDE2000 difference (CIE 142:2001). Far above a noticeable
+difference (ΔE00 ≈ 1-2, common practice), because the empty round bottom
+itself differs from the column by 10-25 in the studio table; real deposits
+there differ by 21-69 (25th-95th percentile). Without a measured contrast
+(0) the rule keeps the pellet."""
 
 RULES_CONFIDENCE = 0.5
 """Confidence given to any rule-based call: the rules were not validated the
@@ -193,8 +205,9 @@ def rule_state(measurement) -> tuple[str, list[str]]:
 
     1. no liquid (``measurement.empty`` or ``liquid is None``) → ``empty``;
     2. liquid turbidity > :data:`RULE_CLOUDY_TURBIDITY` → ``cloudy``;
-    3. a pellet present and at least :data:`RULE_PELLET_MIN_HEIGHT_MM` high
-       (or present with unknown height, no mm scale) → ``settled``;
+    3. a pellet present, at least :data:`RULE_PELLET_MIN_HEIGHT_MM` high (or
+       of unknown height: no mm scale) and differing from the liquid by at
+       least :data:`RULE_PELLET_MIN_CONTRAST_DE00` → ``settled``;
     4. otherwise ``clear``.
 
     Returns
@@ -210,7 +223,10 @@ def rule_state(measurement) -> tuple[str, list[str]]:
     pel = getattr(measurement, "pellet", None)
     if pel is not None and getattr(pel, "present", False):
         h = getattr(pel, "height_mm", None)
-        if h is None or not np.isfinite(h) or h >= RULE_PELLET_MIN_HEIGHT_MM:
+        contrast = float(getattr(pel, "contrast_de00", 0.0) or 0.0)
+        tall = h is None or not np.isfinite(h) or h >= RULE_PELLET_MIN_HEIGHT_MM
+        distinct = not np.isfinite(contrast) or contrast <= 0.0 or contrast >= RULE_PELLET_MIN_CONTRAST_DE00
+        if tall and distinct:
             return "settled", ["settled solid present"]
     return "clear", [f"turbidity {turb:.3g} ≤ {RULE_CLOUDY_TURBIDITY}, no settled solid"]
 

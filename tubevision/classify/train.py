@@ -1,21 +1,33 @@
 """Train and evaluate the state classifier (imports scikit-learn; not needed at run time).
 
-Three jobs, one command each (``python -m tubevision.classify.train --help``):
+Jobs, one command each (``python -m tubevision.classify.train --help``;
+``tubevision train ...`` runs the same):
 
-* ``table``: render studio photos over a grid of illuminants and cameras, run
-  the pipeline's card, tubes (from the studio's truth boxes) and measure stages
-  on them, and write ``calibration/state_training.csv`` — one row per tube:
-  features, truth labels, conditions, and a ``split`` column that holds whole
-  illuminant × camera combinations out for validation. Its ``#`` header
-  lines give the provenance (command, seed, studio grid, versions).
+* ``build-and-fit``: the one command that rebuilds the shipped model from
+  nothing — ``table`` then ``fit`` with the default seed (``TRAIN_SEED``);
+  about 4 minutes on 2 cores.
+* ``table``: render studio photos (:func:`tubevision.studio.random_scene`:
+  random contents, exposure, white balance, tone, noise, blur, JPEG,
+  backdrop, rack, light gradient, photo size) at every illuminant × camera
+  combination except the held-out ones (:func:`held_out_combinations`), find
+  and fit the card as ``analyze`` does, take the tubes from the truth geometry
+  (:func:`truth_regions`: a perfect finder, so the classifier learns
+  measurement features, not finder errors), measure, and write
+  ``calibration/state_training.csv`` — one row per tube: features, truth
+  labels, conditions, measured and true colours, and a ``split`` column
+  (``valid`` = the held-out combinations). Its ``#`` header lines give the
+  provenance (command, seed, held-out combinations, versions, features).
 * ``fit``: fit the random forest on the ``train`` rows with a fixed seed,
   score it on the ``valid`` rows, and write the JSON model
   (``tubevision/data/model_state_v1.json``) with the score it recorded.
 * ``labelled``: retrain on a lab's own photos. Beside each photo
   ``NAME.jpg`` sits ``NAME.labels.json``: ``{"T1": {"state": "cloudy",
-  "colour": "white"}, ...}`` (``colour`` optional, the liquid's word). Reports a
-  cross-validated confusion matrix with per-class precision and recall, and
-  writes a model for ``tubevision analyze --model FILE``.
+  "colour": "white"}, ...}`` (``colour`` optional, the liquid's word; tube ids
+  in reading order as in the record) and optionally ``NAME.layout.json``
+  (tube boxes, the ``--layout`` form; without it the tubes are found).
+  Reports a cross-validated confusion matrix (folds grouped by photo) with
+  per-class precision and recall, the colour words' agreement with the
+  labels, and writes a model for ``tubevision analyze --model FILE``.
 
 References
 ----------
@@ -23,6 +35,7 @@ References
    12, 2825-2830, 2011 (RandomForestClassifier, StratifiedGroupKFold).
 .. [2] C. J. van Rijsbergen, Information Retrieval, 2nd ed., Butterworths,
    1979 (F-measure; macro-F1 is its unweighted mean over classes).
+.. [3] L. Breiman, "Random forests", Machine Learning 45, 5-32, 2001.
 """
 
 from __future__ import annotations
@@ -50,6 +63,7 @@ __all__ = [
     "FOREST_N_TREES",
     "FOREST_MAX_DEPTH",
     "FOREST_MIN_SAMPLES_LEAF",
+    "FOREST_MAX_FEATURES",
     "TRAIN_SEED",
     "LABELS_SUFFIX",
     "Evaluation",
@@ -70,20 +84,31 @@ log = logging.getLogger(__name__)
 TRAINING_CSV = Path(__file__).resolve().parents[2] / "calibration" / "state_training.csv"
 """The shipped training table (in the source tree, not the installed package)."""
 
-FOREST_N_TREES = 60
-"""Trees in the forest: past about 50 the out-of-bag error of a forest this
-size stops falling (Breiman 2001, Fig. 2 shows the plateau; our check on the
-studio table agrees), and the JSON stays a few hundred kB."""
+FOREST_N_TREES = 100
+"""Trees in the forest: past about 50-100 the out-of-bag error of a forest
+stops falling (Breiman 2001 [3]_, Fig. 2 shows the plateau), and 100 trees of
+depth 12 keep the JSON near 1 MB (the shipped file must stay under 2 MB)."""
 
-FOREST_MAX_DEPTH = 8
+FOREST_MAX_DEPTH = 12
 """Depth limit per tree: keeps the file small and the leaves' class fractions
-from being single samples (our choice, checked on held-out studio conditions)."""
+from being single samples. Chosen by 5-fold cross-validation grouped by
+illuminant × camera combination on the ``train`` rows only (depth 8: macro-F1
+0.929, 12: 0.941, 16 unlimited leaves: 0.944 at 1.5× the size; our check)."""
 
 FOREST_MIN_SAMPLES_LEAF = 2
 """Smallest leaf, so that leaf probabilities are not all 0 or 1 (our choice)."""
 
+FOREST_MAX_FEATURES = 0.5
+"""Fraction of the features tried at each split (scikit-learn's
+``max_features``); half rather than the square root because many features are
+near-duplicates (turbidity, its raw value, its sd), so that a split can still
+find a pellet or colour feature (our choice; same grouped check: 0.942)."""
+
 TRAIN_SEED = 20260502
 """Seed of every random choice in training (bootstrap, feature subsets)."""
+
+PHOTO_SUFFIXES = (".jpg", ".jpeg", ".png", ".tif", ".tiff", ".heic", ".webp")
+"""File endings taken as the photo beside a labels file."""
 
 LABELS_SUFFIX = ".labels.json"
 """A photo ``rack.jpg`` is labelled by ``rack.labels.json`` beside it."""
@@ -275,7 +300,8 @@ def _impute(X: np.ndarray, fill: np.ndarray) -> np.ndarray:  # noqa: N803
 
 def fit_state_model(X: np.ndarray, y: Sequence[str], feature_names: Sequence[str], *,  # noqa: N803
                     seed: int = TRAIN_SEED, n_trees: int = FOREST_N_TREES, max_depth: int = FOREST_MAX_DEPTH,
-                    min_samples_leaf: int = FOREST_MIN_SAMPLES_LEAF, meta: dict | None = None) -> StateModel:
+                    min_samples_leaf: int = FOREST_MIN_SAMPLES_LEAF, max_features: float = FOREST_MAX_FEATURES,
+                    meta: dict | None = None) -> StateModel:
     """Fit the random forest and export it to a :class:`StateModel` (no pickle).
 
     Parameters
@@ -283,7 +309,7 @@ def fit_state_model(X: np.ndarray, y: Sequence[str], feature_names: Sequence[str
     X : ndarray (n, n_features) — features; NaN allowed (filled with medians).
     y : sequence of str — states.
     feature_names : names of the columns.
-    seed, n_trees, max_depth, min_samples_leaf : forest settings (see the constants).
+    seed, n_trees, max_depth, min_samples_leaf, max_features : forest settings (see the constants).
     meta : extra provenance to store.
 
     Returns
@@ -304,7 +330,7 @@ def fit_state_model(X: np.ndarray, y: Sequence[str], feature_names: Sequence[str
     fill = _fill_values(X)
     Xf = _impute(X, fill)  # noqa: N806
     clf = RandomForestClassifier(n_estimators=n_trees, max_depth=max_depth, min_samples_leaf=min_samples_leaf,
-                                 class_weight="balanced", random_state=seed, n_jobs=1)
+                                 max_features=max_features, class_weight="balanced", random_state=seed, n_jobs=1)
     clf.fit(Xf, y)
     classes = tuple(str(c) for c in clf.classes_)
     trees = []
@@ -316,7 +342,7 @@ def fit_state_model(X: np.ndarray, y: Sequence[str], feature_names: Sequence[str
                            np.asarray(t.feature, np.int64), np.asarray(t.threshold, np.float64), val))
     info = {"sklearn_version": sklearn.__version__, "estimator": "RandomForestClassifier",
             "params": {"n_estimators": n_trees, "max_depth": max_depth, "min_samples_leaf": min_samples_leaf,
-                       "class_weight": "balanced", "random_state": seed},
+                       "max_features": max_features, "class_weight": "balanced", "random_state": seed},
             "n_train": int(len(y)), "class_counts": {c: int(np.sum(y == c)) for c in classes}}
     info.update(meta or {})
     return StateModel(classes, tuple(feature_names), tuple(trees), np.nanmin(Xf, axis=0), np.nanmax(Xf, axis=0),
@@ -379,6 +405,236 @@ def rows_from_measurements(measurements: Iterable, feature_names: Sequence[str],
     return rows
 
 
+# ----------------------------------------------------------------------------- the studio table
+
+STUDIO_ILLUMINANTS = ("A", "D50", "D65", "FL2", "FL11", "LED-B3", "LED-RGB1",
+                      "planck-2700", "planck-4000", "planck-6500")
+"""Illuminants of the studio table: the studio's CIE/LED tables and three
+Planckian lamps (tungsten, warm and daylight-white LED-like), as
+:func:`tubevision.studio.random_scene` draws them."""
+
+STUDIO_SENSORS = ("nikon5100-npl", "sigma-sdmerill-npl", "phone-a", "phone-b", "phone-c")
+"""Camera sensitivities of the studio table (every studio sensor except the
+ideal colour-matching one, which no real camera has)."""
+
+STUDIO_SIZES = ((1344, 1008), (1632, 1224), (2016, 1512))
+"""Photo sizes drawn for the table (px): tubes from about 40 to 70 px wide.
+Kept below a phone's 12 MP so the table builds in minutes; measure's features
+are scale-free ratios or mm where it matters (our choice)."""
+
+TABLE_CONTENTS_WEIGHTS = {"empty": 3, "water": 2}
+"""Extra weight (draws per photo slot) of contents keys in the table; every
+other studio contents key gets 1. Empty tubes are one key of nineteen, so
+they get three shares to be seen often enough (our choice)."""
+
+TABLE_TRAIN_PHOTOS = 400
+"""Photos rendered at the training illuminant × camera combinations."""
+
+TABLE_VALID_PHOTOS = 120
+"""Photos rendered at the held-out combinations (the ``valid`` rows)."""
+
+BENCH_SEED_OFFSET = 7_000_000
+"""bench/bench_classify.py renders with ``seed + BENCH_SEED_OFFSET``, so its
+photos are never the table's (same held-out combinations, new scenes)."""
+
+
+def held_out_combinations() -> tuple[tuple[str, str], ...]:
+    """The illuminant × camera combinations never used for training.
+
+    One combination per illuminant, cycling through the sensors (a Latin
+    pattern: illuminant i is held out with sensor ``i mod 5``), so every
+    illuminant and every sensor is still seen in training with other partners,
+    and every held-out photo shows a pairing the forest never saw (10 of 50).
+    """
+    return tuple((ill, STUDIO_SENSORS[i % len(STUDIO_SENSORS)]) for i, ill in enumerate(STUDIO_ILLUMINANTS))
+
+
+def training_combinations() -> tuple[tuple[str, str], ...]:
+    """Every studio illuminant × camera combination that is not held out."""
+    held = set(held_out_combinations())
+    return tuple((i, s) for i in STUDIO_ILLUMINANTS for s in STUDIO_SENSORS if (i, s) not in held)
+
+
+def _table_contents() -> tuple[str, ...]:
+    from ..studio.materials import CONTENTS
+
+    out = []
+    for key in CONTENTS:
+        out.extend([key] * TABLE_CONTENTS_WEIGHTS.get(key, 1))
+    return tuple(out)
+
+
+def studio_scene(k: int, split: str, seed: int):
+    """The k-th studio scene of a split (``train``, ``valid`` or ``bench``): (SceneSpec, render seed).
+
+    Combinations cycle in a fixed order, everything else comes from
+    :func:`tubevision.studio.random_scene` with ``default_rng((seed, split, k))``.
+    """
+    from ..studio import random_scene
+
+    combos = training_combinations() if split == "train" else held_out_combinations()
+    ill, sen = combos[k % len(combos)]
+    tag = {"train": 0, "valid": 1, "bench": 2}[split]
+    rng = np.random.default_rng([int(seed) % 2**32, tag, k])
+    w, h = STUDIO_SIZES[int(rng.integers(len(STUDIO_SIZES)))]
+    spec = random_scene(rng, n_tubes=(3, 10), illuminants=(ill,), sensors=(sen,), contents=_table_contents(),
+                        width_px=w, height_px=h)
+    return spec, int(rng.integers(2**31 - 1))
+
+
+def truth_regions(truth: dict) -> tuple:
+    """TubeRegions from a studio truth: its boxes and its liquid geometry (a perfect finder).
+
+    The liquid top (just below the meniscus), the start of the round bottom,
+    the inside bottom and the inner glass columns come from the truth, so the
+    table's features describe the measurement of a correctly found tube, not
+    the finder's misses (``tubes_from_layout`` alone takes the box top as
+    the liquid top: air and rim would be measured as liquid).
+    """
+    from ..tubes import TubeRegion
+
+    out = []
+    for k, t in enumerate(truth["tubes"]):
+        x0, y0, x1, y1 = (int(v) for v in t["bbox"])
+        c0, c1 = int(t["inner_col0"]), int(t["inner_col1"])
+        if c1 <= c0:
+            c0, c1 = x0 + 1, max(x0 + 2, x1 - 1)
+        top = t.get("liquid_top")
+        bottom_top = int(min(max(int(t["bottom_top"]), y0 + 1), y1 - 1))
+        if top is not None:
+            top = int(min(max(int(top), y0), bottom_top - 1))
+        out.append(TubeRegion(index=k, row=int(t.get("row", 0)), bbox=(x0, y0, x1, y1), axis_col=float(t["axis_col"]),
+                              inner_col0=c0, inner_col1=c1, liquid_top=top, liquid_bottom=bottom_top,
+                              bottom_top=bottom_top, inner_bottom=int(min(max(int(t["inner_bottom"]), bottom_top),
+                                                                          y1 - 1)),
+                              source="layout"))
+    return tuple(out)
+
+
+@dataclass(frozen=True)
+class StudioMeasurement:
+    """What :func:`measure_rendered` returns: per-tube measurements and calls, and the card status."""
+
+    measurements: tuple
+    calls: tuple
+    calibration_status: str
+
+
+def measure_rendered(rendered, *, model=None, classify: bool = True) -> StudioMeasurement:
+    """Card → tubes (the truth geometry, :func:`truth_regions`) → measure → classify on a render.
+
+    The card correction and the scale are found and fitted on the photo as
+    :func:`tubevision.analysis.analyze_photo` does (the card's nominal values).
+    ``classify=False`` skips the calls (building the table needs only features).
+    """
+    from .. import measure
+    from ..card import detect as card_detect
+    from ..card import fit as card_fit
+    from ..card.reference import load_card_reference
+    from .calls import classify_tube
+
+    pixels = np.ascontiguousarray(rendered.upright)
+    correction, mm_per_px, status = card_fit.uncalibrated_correction(), None, "none"
+    detection = card_detect.find_card(pixels)
+    if detection:
+        correction = card_fit.fit_card_correction(detection, load_card_reference(None))
+        mm_per_px, status = detection.mm_per_px, "card"
+    ms = tuple(measure.measure_tube(pixels, r, correction=correction, mm_per_px=mm_per_px)
+               for r in truth_regions(rendered.truth))
+    calls = tuple(classify_tube(m, model=model) for m in ms) if classify else ()
+    return StudioMeasurement(ms, calls, status)
+
+
+STUDIO_CONDITION_COLUMNS = ("contents", "illuminant", "sensor", "size", "backdrop", "calibration",
+                            "liq_L", "liq_a", "liq_b", "pel_L", "pel_a", "pel_b",
+                            "true_L", "true_a", "true_b", "true_turbidity")
+"""Columns of the table that describe the photo and the measured colours
+(not features: the forest never sees them)."""
+
+
+def studio_rows(k: int, split: str, seed: int, feature_names: Sequence[str] | None = None, model=None) -> list[dict]:
+    """Render, measure and label the k-th studio scene of a split: one row per tube."""
+    from ..measure import FEATURE_NAMES
+    from ..studio import render_scene
+
+    names = tuple(feature_names or FEATURE_NAMES)
+    spec, rseed = studio_scene(k, split, seed)
+    rendered = render_scene(spec, seed=rseed)
+    a = measure_rendered(rendered, model=model, classify=model is not None)
+    truths = []
+    for t in rendered.truth["tubes"]:
+        truths.append({"state": t["state"], "colour": (t.get("liquid") or {}).get("colour_name") or "",
+                       "pellet_colour": (t.get("pellet") or {}).get("colour_name") or ""})
+    rows = rows_from_measurements(a.measurements, names, photo=f"{split}-{k:04d}", truths=truths,
+                                  extra={"split": split, "illuminant": spec.illuminant, "sensor": spec.camera.sensor,
+                                         "size": f"{spec.width_px}x{spec.height_px}", "backdrop": spec.backdrop,
+                                         "calibration": a.calibration_status})
+    for i, (r, t, m) in enumerate(zip(rows, rendered.truth["tubes"], a.measurements)):
+        r["contents"] = t["contents"]
+        liq_lab = m.liquid.lab if m.liquid is not None else (np.nan,) * 3
+        pel_lab = m.pellet.lab if (m.pellet.present and m.pellet.lab is not None) else (np.nan,) * 3
+        r["liq_L"], r["liq_a"], r["liq_b"] = (float(v) for v in liq_lab)
+        r["pel_L"], r["pel_a"], r["pel_b"] = (float(v) for v in pel_lab)
+        true_lab = (t.get("liquid") or {}).get("lab") or (np.nan,) * 3
+        r["true_L"], r["true_a"], r["true_b"] = (float(v) for v in true_lab)
+        r["true_turbidity"] = float((t.get("liquid") or {}).get("turbidity") or 0.0)
+        if a.calls:
+            r["_call"] = a.calls[i]
+    return rows
+
+
+def _studio_rows_job(args) -> list[dict]:
+    k, split, seed = args
+    rows = studio_rows(k, split, seed)
+    for r in rows:
+        r.pop("_call", None)
+    return rows
+
+
+def build_studio_table(path: str | Path = TRAINING_CSV, *, seed: int = TRAIN_SEED,
+                       n_train: int = TABLE_TRAIN_PHOTOS, n_valid: int = TABLE_VALID_PHOTOS,
+                       jobs: int = 2, command: str = "") -> TrainingTable:
+    """Render and measure the studio photos and write the training CSV; returns the table read back.
+
+    Rows do not depend on ``jobs`` (each photo's randomness comes from its own
+    seed), so the table is the same byte for byte on any machine with the same
+    library versions.
+    """
+    import platform
+
+    from ..measure import FEATURE_NAMES
+
+    work = [(k, "train", seed) for k in range(n_train)] + [(k, "valid", seed) for k in range(n_valid)]
+    rows: list[dict] = []
+    if jobs > 1:
+        import concurrent.futures as cf
+        import multiprocessing as mp
+
+        with cf.ProcessPoolExecutor(max_workers=jobs, mp_context=mp.get_context("spawn")) as ex:
+            for i, part in enumerate(ex.map(_studio_rows_job, work, chunksize=4)):
+                rows.extend(part)
+                if (i + 1) % 50 == 0:
+                    log.info("studio table: %d of %d photos", i + 1, len(work))
+    else:
+        for i, w in enumerate(work):
+            rows.extend(_studio_rows_job(w))
+            if (i + 1) % 50 == 0:
+                log.info("studio table: %d of %d photos", i + 1, len(work))
+    import sklearn
+
+    header = [
+        "tubevision studio training table for the state classifier (synthetic renders, invented scenes)",
+        f"command: {command or 'python -m tubevision.classify.train table'}",
+        f"seed: {seed}; photos: {n_train} train, {n_valid} valid",
+        "split: valid rows are the held-out illuminant x camera combinations "
+        + " ".join(f"{i}/{s}" for i, s in held_out_combinations()),
+        f"versions: python {platform.python_version()}, numpy {np.__version__}, scikit-learn {sklearn.__version__}",
+        "features: " + " ".join(FEATURE_NAMES),
+    ]
+    write_training_table(path, rows, FEATURE_NAMES, STUDIO_CONDITION_COLUMNS, header)
+    return read_training_table(path)
+
+
 # ----------------------------------------------------------------------------- a lab's own photos
 
 def labelled_pairs(folder: str | Path) -> list[tuple[Path, Path]]:
@@ -395,7 +651,8 @@ def labelled_pairs(folder: str | Path) -> list[tuple[Path, Path]]:
     pairs = []
     for lab in sorted(d.glob("*" + LABELS_SUFFIX)):
         stem = lab.name[: -len(LABELS_SUFFIX)]
-        photos = [p for p in sorted(d.glob(stem + ".*")) if p != lab and not p.name.endswith(".json")]
+        photos = [p for p in sorted(d.glob(stem + ".*")) if p != lab and not p.name.endswith(".json")
+                  and p.suffix.lower() in PHOTO_SUFFIXES]
         if not photos:
             raise TubevisionInputError(f"labels file {lab.name}: no photo {stem}.* beside it")
         pairs.append((photos[0], lab))
@@ -435,6 +692,26 @@ def read_labels(path: str | Path) -> dict[str, dict[str, str]]:
                                            + ", ".join(COLOUR_WORDS))
         out[key] = {"state": v["state"], "colour": v.get("colour"), "pellet_colour": v.get("pellet_colour")}
     return out
+
+
+LAYOUT_SUFFIX = ".layout.json"
+"""Optional tube boxes for a labelled photo ``rack.jpg``: ``rack.layout.json`` in
+the form ``tubevision analyze --layout`` reads; without it the tubes are found."""
+
+
+def layout_beside(photo: str | Path):
+    """The boxes of ``NAME.layout.json`` beside a photo, or None when there is none."""
+    from ..tubes import parse_layout
+
+    p = Path(photo)
+    lay = p.with_name(p.stem + LAYOUT_SUFFIX)
+    if not lay.is_file():
+        return None
+    try:
+        text = lay.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError):
+        raise TubevisionInputError(f"layout file {lay.name}: not readable as UTF-8 text") from None
+    return parse_layout(text, where=lay.name)
 
 
 def measure_photo(path: str | Path, *, layout_boxes=None, no_card: bool = False):
@@ -496,7 +773,8 @@ def train_from_labelled_photos(pairs: Sequence[tuple[str | Path, str | Path]], *
     X_rows, y, groups, colour_true, colour_pred = [], [], [], [], []  # noqa: N806
     for k, (photo_path, labels_path) in enumerate(pairs):
         labels = read_labels(labels_path)
-        analysis = measured[k] if measured is not None else measure_photo(photo_path)
+        analysis = (measured[k] if measured is not None
+                    else measure_photo(photo_path, layout_boxes=layout_beside(photo_path)))
         ms = list(analysis.measurements)
         if feature_names is None:
             names = [n for m in ms for n in (getattr(m, "features", {}) or {})]
@@ -560,9 +838,28 @@ def train_from_labelled_photos(pairs: Sequence[tuple[str | Path, str | Path]], *
 
 # ----------------------------------------------------------------------------- command line
 
+def _cmd_table(args) -> int:
+    table = build_studio_table(args.out, seed=args.seed, n_train=args.train_photos, n_valid=args.valid_photos,
+                               jobs=args.jobs, command=" ".join(["python -m tubevision.classify.train"]
+                                                                 + list(args.argv)))
+    counts = {c: table.column("state").count(c) for c in STATES}
+    sys.stdout.write(f"wrote {args.out}: {len(table.rows)} tubes " + ", ".join(f"{c} {n}" for c, n in counts.items())
+                     + "\n")
+    return 0
+
+
+def _cmd_build_and_fit(args) -> int:
+    _cmd_table(args)
+    args.table = args.out
+    args.out = args.model_out
+    return _cmd_fit(args)
+
+
 def _cmd_fit(args) -> int:
     table = read_training_table(args.table)
-    model, ev = fit_from_table(table, seed=args.seed, source=str(args.table_name or args.table))
+    name = args.table_name or ("calibration/state_training.csv" if Path(args.table).resolve() == TRAINING_CSV
+                               else Path(args.table).name)
+    model, ev = fit_from_table(table, seed=args.seed, source=name)
     write_model(model, args.out)
     sys.stdout.write(ev.report + "\n")
     sys.stdout.write(f"wrote {args.out}\n")
@@ -589,14 +886,22 @@ def build_parser() -> argparse.ArgumentParser:
                                 description="Build the studio training table, fit the state model, "
                                             "or retrain it on labelled photos.")
     sub = p.add_subparsers(dest="cmd", required=True)
-    t = sub.add_parser("table", help="render studio photos and write the training CSV")
-    t.add_argument("--out", default=str(TRAINING_CSV))
-    t.add_argument("--seed", type=int, default=TRAIN_SEED)
-    t.add_argument("--photos-per-condition", type=int, default=2)
+    model_default = str(Path(__file__).resolve().parent.parent / "data" / "model_state_v1.json")
+    for name, text in (("table", "render studio photos and write the training CSV"),
+                       ("build-and-fit", "table, then fit: the one command that rebuilds the shipped model")):
+        t = sub.add_parser(name, help=text)
+        t.add_argument("--out", default=str(TRAINING_CSV), help="training CSV to write")
+        t.add_argument("--seed", type=int, default=TRAIN_SEED)
+        t.add_argument("--train-photos", type=int, default=TABLE_TRAIN_PHOTOS)
+        t.add_argument("--valid-photos", type=int, default=TABLE_VALID_PHOTOS)
+        t.add_argument("--jobs", type=int, default=2, help="worker processes (the table does not depend on it)")
+        if name == "build-and-fit":
+            t.add_argument("--model-out", default=model_default, help="JSON model to write")
+            t.add_argument("--table-name", default=None, help="name of the table recorded in the model")
     f = sub.add_parser("fit", help="fit on split=train rows, score on split=valid, write the JSON model")
     f.add_argument("--table", default=str(TRAINING_CSV))
     f.add_argument("--table-name", default=None, help="name of the table recorded in the model")
-    f.add_argument("--out", default=str(Path(__file__).resolve().parent.parent / "data" / "model_state_v1.json"))
+    f.add_argument("--out", default=model_default)
     f.add_argument("--seed", type=int, default=TRAIN_SEED)
     lab = sub.add_parser("labelled", help="cross-validate and retrain on photos with NAME.labels.json beside them")
     lab.add_argument("folder")
@@ -610,10 +915,14 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     """Command line; returns 0 done, 2 bad input (message on stderr)."""
     logging.basicConfig(level=logging.INFO, format="%(levelname)s %(message)s")
+    argv = list(sys.argv[1:] if argv is None else argv)
     args = build_parser().parse_args(argv)
+    args.argv = argv
     try:
         if args.cmd == "table":
             return _cmd_table(args)
+        if args.cmd == "build-and-fit":
+            return _cmd_build_and_fit(args)
         if args.cmd == "fit":
             return _cmd_fit(args)
         return _cmd_labelled(args)
