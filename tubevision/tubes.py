@@ -674,6 +674,11 @@ WALL_VALLEY_MIN = 0.25
 """Smallest fraction of the light rows where both walls are dark lines: the air above the
 liquid and clear liquids show them, dark or cloudy liquids may hide the inner side."""
 
+INNER_WALL_FREE_FRACTION = 0.36
+"""Half-width (fraction of the outer width) of the inside that must carry no dark line as
+dark as half the walls' (the glass walls are 0.07 widths thick, and refraction keeps them
+within ~0.1 widths of the outline)."""
+
 ABOVE_RIM_LIGHT_MIN = 0.2
 """Smallest fraction of light-backdrop rows from 0.8 to 0.1 widths above the rim: a rim
 stands free above the rack; walls that start right under a dark bar are a tube's lower
@@ -877,6 +882,21 @@ def _verify(c, ev: _Evidence, out: list, pending: list) -> None:
         valley &= np.minimum(out_v, in_v) - line > WALL_VALLEY_CONTRAST * out_v
     if valley[sel].mean() < WALL_VALLEY_MIN:
         return _reject(c, 54)
+    # no third wall inside: a dark line inside the glass, nearly as dark as the walls'
+    # lines, is another tube's wall (a pair spanning a tube and a gap). Specular streaks
+    # inside are bright lines, the meniscus is horizontal.
+    d = max(2, int(round(0.06 * w2)))
+    Gs = G[sel]
+    dark = np.zeros(us.size)
+    dark[d:-d] = np.median((np.minimum(Gs[:, :-2 * d], Gs[:, 2 * d:]) - Gs[:, d:-d])
+                           / np.maximum(np.maximum(Gs[:, :-2 * d], Gs[:, 2 * d:]), 1.0), axis=0)
+    u_rel = us - shift
+    near_l = np.abs(u_rel - (ul - shift) - 0.5 * d) <= d
+    near_r = np.abs(u_rel - (ur - shift) + 0.5 * d) <= d
+    wall_dark = min(float(dark[near_l].max()), float(dark[near_r].max())) if near_l.any() and near_r.any() else 0.0
+    inner = np.abs(u_rel) <= INNER_WALL_FREE_FRACTION * w2
+    if wall_dark > 0 and float(dark[inner].max()) >= 0.5 * wall_dark:
+        return _reject(c, -1)
     # rim: first row with both walls that starts a run where they mostly stay
     k = max(3, int(round(0.4 * w)))
     on_l = (on | ~light).astype(float)
@@ -911,6 +931,11 @@ def _verify(c, ev: _Evidence, out: list, pending: list) -> None:
     if y_hi <= y_lo:
         return _reject(c, 87)
     ycs = np.arange(np.ceil(y_lo), np.floor(y_hi) + 1)
+    # a tube does not run into the left-out area (the card): stop at its edge
+    yi = ycs.astype(int) + int(np.ceil(r))
+    inside = (yi < h) & ev.valid[np.clip(yi, 0, h - 1), np.clip(np.round(a2 + c.b * ycs).astype(int), 0, wd - 1)]
+    if not inside.all():
+        ycs = ycs[:int(np.argmin(inside))]
     if ycs.size == 0:
         return _reject(c, 90)
     # walls beyond the sampled rows: extend the row evidence down to y_hi + 2.5 w
@@ -947,7 +972,7 @@ def _verify(c, ev: _Evidence, out: list, pending: list) -> None:
         return _reject(c, 122)
     arc_v = float(arc_f[chosen])
     out.append(_Tube(a=float(a2), b=float(c.b), top=rim, end=yc, w=float(w2),
-                     score=float(level * coverage * (0.5 + arc_v) * length * w2 * w2),
+                     score=float(coverage * arc_v * length * w2),
                      arc=arc_v, coverage=coverage))
     if c.end - (yc + r) > LENGTH_WIDTHS[0] * w:
         pending.append(_Candidate(a=c.a, b=c.b, top=yc + 1.6 * w, end=c.end, w=c.w, strength=c.strength))
