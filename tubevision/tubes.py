@@ -322,6 +322,15 @@ bottom's centre; lower down, a settled solid's top would be taken for it."""
 BAND_SAMPLES = 37
 """Samples across a tube (over ±0.9 widths) taken from full-resolution pixels."""
 
+DARK_ROW_SCORE_FACTOR = 5.0
+"""Over dark backdrop rows a meniscus must score this many times :data:`MENISCUS_MIN_SCORE`:
+the ratio of two dark samples carries sensor and JPEG noise several times that of light ones
+(a dark band is ~5 % of the light backdrop's linear signal)."""
+
+DARK_ROW_MIN_FRACTION = 0.01
+"""Rows beside the tube darker than this fraction of the light backdrop (an occluder, a
+shadow, clipped black) carry no meniscus information at all."""
+
 LIGHT_ROW_FRACTION = 0.4
 """Backdrop rows darker than this fraction of the tube's brightest backdrop rows (dark
 backdrop bands, shadows) carry no meniscus information and are skipped."""
@@ -1188,13 +1197,28 @@ def _meniscus(inner: np.ndarray, beside: np.ndarray, flat: np.ndarray, lo: int, 
     ref = float(np.percentile(beside_l[lo:hi], 95)) if hi > lo else 0.0
     if hi - lo < 6 or ref <= 0:
         return None
-    bad = ~(beside_l > LIGHT_ROW_FRACTION * ref) | flat
-    # leave out a margin at each edge of a dark band or occluder: the inner and beside
-    # samples cross a slightly slanted edge at slightly different rows
-    m = max(2, int(round(EDGE_MARGIN_FRACTION * w_full)))
-    bad = np.convolve(bad.astype(float), np.ones(2 * m + 1), mode="same") > 0
-    ok = ~bad
     R = inner / np.maximum(beside, 1e-4)
+    m = max(2, int(round(EDGE_MARGIN_FRACTION * w_full)))
+    light = beside_l > LIGHT_ROW_FRACTION * ref
+    found = []
+    # the light rows; then the rows of dark backdrop bands, on their own (a cloudy liquid
+    # shows most over dark bands, where its scattered light adds to little; the ratio is
+    # noisier there, hence the higher threshold); the top-most meniscus found wins
+    for cls, min_score in ((light, MENISCUS_MIN_SCORE),
+                           (~light & (beside_l > DARK_ROW_MIN_FRACTION * ref), DARK_ROW_SCORE_FACTOR * MENISCUS_MIN_SCORE)):
+        bad = ~cls | flat
+        # leave out a margin at each edge of a dark band or occluder: the inner and beside
+        # samples cross a slightly slanted edge at slightly different rows
+        bad = np.convolve(bad.astype(float), np.ones(2 * m + 1), mode="same") > 0
+        v = _meniscus_rows(R, ~bad, flat, lo, hi, w_full, min_score)
+        if v is not None:
+            found.append(v)
+    return min(found) if found else None
+
+
+def _meniscus_rows(R: np.ndarray, ok: np.ndarray, flat: np.ndarray, lo: int, hi: int, w_full: float,
+                   min_score: float) -> int | None:
+    """:func:`_meniscus` over the rows ``ok`` of the inside/beside ratio ``R`` (NV, 3)."""
     # work on the valid rows only, in order: a step or dip is judged against the
     # nearest valid rows above and below, however far a dark band pushes them
     vv = np.nonzero(ok)[0]
@@ -1229,9 +1253,9 @@ def _meniscus(inner: np.ndarray, beside: np.ndarray, flat: np.ndarray, lo: int, 
     score = step + np.clip(dip, 0, None)
     score[(vv < lo) | (vv >= hi)] = 0.0
     best = float(score.max())
-    if best < MENISCUS_MIN_SCORE:
+    if best < min_score:
         return None
-    thr = max(MENISCUS_MIN_SCORE, 0.35 * best)
+    thr = max(min_score, 0.35 * best)
     first = int(np.nonzero(score >= thr)[0][0])
     run_end = first
     while run_end + 1 < n and score[run_end + 1] >= thr:
@@ -1239,7 +1263,13 @@ def _meniscus(inner: np.ndarray, beside: np.ndarray, flat: np.ndarray, lo: int, 
     j = first + int(np.argmax(score[first:run_end + 1]))
     v = int(vv[j])
     if dip[j] > 0.5 * step[j]:
-        return v + 1                   # just below the dark meniscus line
+        # just below the dark meniscus line: the first row, going down, where the ratio
+        # is back above half-way from the line's darkest to the liquid below it
+        half = 0.5 * (cen[j] + far_b[j])
+        jj = j
+        while jj + 1 < n and vv[jj + 1] - vv[jj] <= 2 and Rl[jj] < half and jj - j < 2 * k:
+            jj += 1
+        return int(vv[jj]) if jj > j else v + 1
     if j == 0 or vv[j] - vv[j - 1] <= 2:
         return v                       # first row of the liquid
     gap = slice(int(vv[j - 1]) + 1, v)
