@@ -1220,7 +1220,10 @@ def _meniscus_rows(R: np.ndarray, ok: np.ndarray, flat: np.ndarray, lo: int, hi:
                    min_score: float) -> int | None:
     """:func:`_meniscus` over the rows ``ok`` of the inside/beside ratio ``R`` (NV, 3)."""
     # work on the valid rows only, in order: a step or dip is judged against the
-    # nearest valid rows above and below, however far a dark band pushes them
+    # nearest valid rows above and below, however far a dark band pushes them; none
+    # above ``lo`` (the rim and its lip would pass for a step)
+    ok = ok.copy()
+    ok[:max(lo, 0)] = False
     vv = np.nonzero(ok)[0]
     n = vv.size
     k = max(2, int(round(0.12 * w_full)))
@@ -1278,6 +1281,37 @@ def _meniscus_rows(R: np.ndarray, ok: np.ndarray, flat: np.ndarray, lo: int, hi:
     return int(round((vv[j - 1] + v) / 2))   # inside a dark band: its middle
 
 
+BAND_ALIGN_MAX_FRACTION = 0.1
+"""Largest shift (fraction of the tube's width) of the samples beside a tube along its axis
+that aligns the backdrop's horizontal bands with those seen through it: a 15° tilted camera
+turns lines about 4° against a tube's axis (pinhole geometry), 0.66 widths away ≈ 0.05 widths."""
+
+
+def _aligned(side: np.ndarray, inner: np.ndarray, lo: int, hi: int, max_shift: int) -> np.ndarray:
+    """``side`` (NV, 3) shifted along the axis by the lag (|lag| ≤ ``max_shift``) that best
+    correlates its log luminance with that of ``inner`` over rows [lo, hi); unshifted when
+    the profiles carry no pattern (plain backdrop) or no lag does clearly better."""
+    if hi - lo < 4 * max_shift + 8 or max_shift < 1:
+        return side
+    a = np.log(side.mean(axis=1) + 1e-3)
+    b = np.log(inner.mean(axis=1) + 1e-3)
+    if a[lo:hi].std() < 0.1 or b[lo:hi].std() < 0.1:
+        return side
+    best, best_c, c0 = 0, -np.inf, None
+    for k in range(-max_shift, max_shift + 1):
+        x = a[lo + max_shift + k:hi - max_shift + k]
+        y = b[lo + max_shift:hi - max_shift]
+        c = float(np.corrcoef(x, y)[0, 1])
+        if k == 0:
+            c0 = c
+        if c > best_c:
+            best, best_c = k, c
+    if best == 0 or c0 is None or best_c - c0 < 0.02:
+        return side
+    idx = np.clip(np.arange(side.shape[0]) + best, 0, side.shape[0] - 1)
+    return side[idx]
+
+
 def _refine_full(pixels: np.ndarray, cand: _Candidate, A: np.ndarray, index_hint: int):
     """Step 4 (bottom) and step 5 on full-resolution pixels along the axis.
 
@@ -1309,7 +1343,12 @@ def _refine_full(pixels: np.ndarray, cand: _Candidate, A: np.ndarray, index_hint
     inner_sel = np.abs(U) < 1 / 6
     beside_sel = (np.abs(U) > 0.58) & (np.abs(U) < 0.75)
     inner = lin[:, inner_sel].mean(axis=1)
-    beside = lin[:, beside_sel].mean(axis=1)
+    # each side's samples are shifted along the axis onto the inside's rows: under
+    # perspective the backdrop's bands are not quite square to the tube's axis
+    lo_r, hi_r = int(max(0, -v0)), int(min(nv, length - v0))
+    max_shift = int(np.ceil(BAND_ALIGN_MAX_FRACTION * w_full))
+    beside = 0.5 * (_aligned(lin[:, beside_sel & (U < 0)].mean(axis=1), inner, lo_r, hi_r, max_shift)
+                    + _aligned(lin[:, beside_sel & (U > 0)].mean(axis=1), inner, lo_r, hi_r, max_shift))
     lum = lin.mean(axis=2)
     flat = lum.std(axis=1) < 0.04 * np.maximum(lum.mean(axis=1), 1e-4)
     v_rim = -v0
