@@ -294,7 +294,7 @@ more than 2.5 widths stay visible."""
 MIN_TRACK_DENSITY = 0.45
 """Fraction of a track's strips that must carry a peak (random alignments are sparse)."""
 
-MAX_GAP_WIDTHS = 3.0
+MAX_GAP_WIDTHS = 1.5
 """Longest gap (in tube widths) a track may bridge (the rack's bar in front of the tubes),
 unless a round bottom ends the track above the gap."""
 
