@@ -143,13 +143,18 @@ def main(argv=None) -> int:
     timings: list[float] = []
     cal_ok = 0
     n_photos = 0
-    de_all: list[float] = []
+    de_all: list[tuple[float, str]] = []
     warn_counts: dict[str, int] = {}
 
     def colour_errors(rendered, ms):
+        cond = rendered.truth["conditions"]
         for t, m in zip(rendered.truth["tubes"], ms):
             if t["liquid"] is not None and m.liquid is not None:
-                de_all.append(float(delta_e00(np.array(m.liquid.lab), np.array(t["liquid"]["lab"]))))
+                d = float(delta_e00(np.array(m.liquid.lab), np.array(t["liquid"]["lab"])))
+                de_all.append((d, f"{t['contents']} ({cond['backdrop']}, {cond['illuminant']}, {cond['sensor']}, "
+                                  f"seed {cond['seed']}, {m.liquid.n_pixels} px, truth "
+                                  f"{np.round(t['liquid']['lab'], 1).tolist()} read "
+                                  f"{np.round(m.liquid.lab, 1).tolist()})"))
             for w in m.warnings:
                 key = w.split(": ", 1)[-1].split(";")[0][:40]
                 warn_counts[key] = warn_counts.get(key, 0) + 1
@@ -193,8 +198,8 @@ def main(argv=None) -> int:
             (pos if t["contents"] == "faint-cloud" else neg).append(m.liquid.turbidity if m.liquid else 0.0)
 
     # 3. settled solid
-    tp = fp = fn = tn = 0
-    herr: list[float] = []
+    conf = {"hbands": [0, 0, 0, 0], "plain": [0, 0, 0, 0]}      # tp, fp, fn, tn
+    herr_by: dict[str, list[float]] = {"hbands": [], "plain": []}
     misses: list[str] = []
     solids = ("white-precipitate", "yellow-precipitate", "black-precipitate", "brown-precipitate",
               "pink-precipitate")
@@ -214,21 +219,27 @@ def main(argv=None) -> int:
         cal_ok += ok
         n_photos += 1
         colour_errors(r, ms)
+        c = conf[backdrop]
+        where = f"({backdrop}, photo {k}, {ILLUMINANTS[(k + 3) % 5]}, {SENSORS[(k + 3) % 5]})"
         for t, m in zip(r.truth["tubes"], ms):
             truth_present = t["pellet"]["present"] and t["pellet"]["height_mm"] >= 1.0
             found = m.pellet.present
             if truth_present and found:
-                tp += 1
+                c[0] += 1
                 if m.pellet.height_mm is not None:
-                    herr.append(m.pellet.height_mm - t["pellet"]["height_mm"])
+                    e = m.pellet.height_mm - t["pellet"]["height_mm"]
+                    herr_by[backdrop].append(e)
+                    if abs(e) > 0.5:
+                        misses.append(f"height {t['contents']} {t['pellet']['height_mm']} mm read "
+                                      f"{m.pellet.height_mm:.2f} mm {where}")
             elif truth_present:
-                fn += 1
-                misses.append(f"miss {t['contents']} {t['pellet']['height_mm']} mm ({backdrop})")
+                c[2] += 1
+                misses.append(f"miss {t['contents']} {t['pellet']['height_mm']} mm {where}")
             elif found:
-                fp += 1
-                misses.append(f"false {t['contents']} {m.pellet.height_mm} mm ({backdrop})")
+                c[1] += 1
+                misses.append(f"false {t['contents']} {m.pellet.height_mm:.2f} mm {where}")
             else:
-                tn += 1
+                c[3] += 1
 
     # 4. speed on a 12 MP photo
     sp_t: list[float] = []
@@ -260,18 +271,27 @@ def main(argv=None) -> int:
               f"{spearman(pooled_t, pooled_m):.3f}")
     print(f"faint cloud vs clear ROC AUC: {roc_auc(pos, neg):.4f} ({len(pos)} faint, {len(neg)} clear; "
           f"target >= 0.99); faint tau median {np.median(pos):.3f}, clear tau p95 {np.percentile(neg, 95):.3f}")
-    prec = tp / max(1, tp + fp)
-    rec = tp / max(1, tp + fn)
-    f1 = 2 * prec * rec / max(1e-9, prec + rec)
-    print(f"settled solid >= 1 mm: F1 {f1:.3f} (precision {prec:.3f}, recall {rec:.3f}; tp {tp} fp {fp} "
-          f"fn {fn} tn {tn}; target >= 0.95)")
-    if herr:
-        a = np.abs(herr)
-        print(f"pellet height error: median |e| {np.median(a):.2f} mm, p90 {np.percentile(a, 90):.2f} mm, "
-              f"max {a.max():.2f} mm, mean signed {np.mean(herr):+.2f} mm (target <= 0.5 mm)")
-    for line in misses[:12]:
+    def f1_line(name, c, errs):
+        tp, fp, fn, tn = c
+        prec = tp / max(1, tp + fp)
+        rec = tp / max(1, tp + fn)
+        f1 = 2 * prec * rec / max(1e-9, prec + rec)
+        print(f"settled solid >= 1 mm, {name}: F1 {f1:.3f} (precision {prec:.3f}, recall {rec:.3f}; tp {tp} "
+              f"fp {fp} fn {fn} tn {tn}; target >= 0.95)")
+        if errs:
+            a = np.abs(errs)
+            print(f"  height error, {name}: median |e| {np.median(a):.2f} mm, p90 {np.percentile(a, 90):.2f} mm, "
+                  f"max {a.max():.2f} mm, mean signed {np.mean(errs):+.2f} mm (target <= 0.5 mm)")
+
+    f1_line("banded backdrop", conf["hbands"], herr_by["hbands"])
+    f1_line("plain backdrop", conf["plain"], herr_by["plain"])
+    f1_line("all", [a + b for a, b in zip(conf["hbands"], conf["plain"])], herr_by["hbands"] + herr_by["plain"])
+    for line in misses[:20]:
         print(f"  {line}")
-    de = np.asarray(de_all)
+    de_all.sort(key=lambda x: -x[0])
+    for d, what in de_all[:3]:
+        print(f"  worst colour: dE00 {d:.1f} {what}")
+    de = np.asarray([d for d, _ in de_all])
     print(f"liquid colour dE00 vs truth: median {np.median(de):.2f}, p90 {np.percentile(de, 90):.2f}, "
           f"max {de.max():.2f} over {de.size} tubes")
     print(f"measure_tube speed, 4032x3024 photo: median {1000 * statistics.median(sp_t):.1f} ms per tube, "

@@ -106,9 +106,10 @@ white solid on a plain white backdrop has nothing to show its opacity against an
 found; the banded backdrop shows it in its dark bands.
 
 The height is measured on the axis from the inside bottom of the glass to the sub-row
-position where the opacity measure crosses half-way between solid and liquid (the middle
-of the undecidable rows when the top lies in a band where solid and liquid look alike),
-times the scale. The scale should be the card's at the tube's position
+position where the opacity measure crosses half-way between solid and liquid, times the
+scale. When the top lies in rows where solid and liquid look alike, a weak step in
+luminance is fitted there (:data:`PELLET_WEAK_EDGE_MIN`); failing that the middle of those
+rows is taken, with an sd of their span / sqrt(12). The scale should be the card's at the tube's position
 (:func:`mm_per_px_at`, through the card's homography), not only at the card.
 
 Uncertainty
@@ -246,6 +247,21 @@ luminance (chosen)."""
 
 PELLET_MAX_ABSORBANCE = 3.0
 """Apparent absorbances (natural log) are capped here: transmission below e⁻³ ≈ 5 %."""
+
+PELLET_FLARE_FRACTION = 0.005
+"""Light added to every reading of the opacity test, as a fraction of the light backdrop's
+level, so that two near-black readings (a black solid over a black band) are compared as
+a camera can tell them apart rather than in ratio. A camera's veiling glare is of the
+order of 1–3 % (ISO 18844 measures it; from memory); 0.5 % is taken, a floor below it so
+that real dark-on-dark differences are not hidden (chosen)."""
+
+PELLET_WEAK_EDGE_MIN = 0.03
+"""Where the solid's top lies in rows where solid and liquid look alike (a white solid over
+a light band), a step in luminance is still fitted when the two differ by at least this in
+ln Y (3 %, several times the row noise of a phone JPEG; chosen)."""
+
+PELLET_WEAK_EDGE_MAX_BAD = 0.2
+"""... and accepted when at most this fraction of those rows disagree with the step."""
 
 PELLET_REF_GAP_FRACTION = 0.15
 """Reference liquid rows end this far (fraction of width) above the round bottom's start."""
@@ -998,6 +1014,10 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     i4 = np.concatenate([row_rgb, (row_rgb @ _Y_WEIGHTS)[:, None]], axis=1)
     b_rgb4 = beside_rgb[rows]
     b_rows = np.maximum(np.concatenate([b_rgb4, (b_rgb4 @ _Y_WEIGHTS)[:, None]], axis=1), 1e-4)
+    # a flare floor: differences between two near-black readings mean nothing
+    flare = PELLET_FLARE_FRACTION * float(np.median(b_rows[use_l, 3]))
+    i4 = i4 + flare
+    b_rows = b_rows + flare
     absorb = -np.log(np.maximum(i4, 1e-4) / b_rows)                            # (n, 4)
     i_l, b_l = np.median(i4[use_l], axis=0), np.median(b_rows[use_l], axis=0)
     if have_dark:
@@ -1038,7 +1058,22 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     if is_solid.any():
         # rows where this solid would look like the liquid (a white solid over the light
         # bands, a dark one over the dark bands) can neither confirm nor end it
-        ln_s = np.log(np.maximum(np.median(i4[is_solid], axis=0), 1e-4))
+        # the solid's own reading: from rows away from band edges where there are such;
+        # at band edges blur mixes it with the liquid, so there take its extreme reading
+        # on the side away from the liquid (darker or lighter than the liquid would be)
+        ly = np.log(b_rows[:, 3])
+        m_ = max(1, int(np.max(shift)))
+        from scipy.ndimage import maximum_filter1d, minimum_filter1d
+
+        stable = (maximum_filter1d(ly, 2 * m_ + 1, mode="nearest")
+                  - minimum_filter1d(ly, 2 * m_ + 1, mode="nearest")) < 0.5 * PELLET_MIN_OPACITY
+        if (is_solid & stable).sum() >= 2:
+            s_read = np.median(i4[is_solid & stable], axis=0)
+        else:
+            liq_y = ly - np.minimum(k_geo * a_ref[:, 3], PELLET_MAX_ABSORBANCE)
+            darker = float(np.median(np.log(i4[is_solid, 3]) - liq_y[is_solid])) < 0
+            s_read = i4[is_solid].min(axis=0) if darker else i4[is_solid].max(axis=0)
+        ln_s = np.log(np.maximum(s_read, 1e-4))
         dev_s = np.full(rows.size, np.inf)
         dev_s[low] = _opacity_dev(np.broadcast_to(ln_s, (int(low.sum()), 4)), ln_b[low], a_ref[low],
                                   k_lo[low], k_hi[low], shift[low])
@@ -1062,9 +1097,32 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     half_level = 0.5 * (solid_level + liquid_level)
     edge_row = float(rows[top_j]) - 0.5
     unknown_above = top_j - (j + 1)          # undecidable rows between the solid and the stop
+    edge_spread = float(unknown_above)
     if unknown_above > 0:
-        # the top lies somewhere in those rows: take their middle, sd = span / sqrt(12)
-        edge_row -= unknown_above / 2.0
+        # the top lies somewhere in those rows, where solid and liquid look alike; a weak
+        # difference in luminance may still show a step: fit one (least disagreements)
+        span = np.arange(j + 1, top_j + 1)
+        ky = np.minimum(k_geo[span] * a_ref[span, 3], PELLET_MAX_ABSORBANCE)
+        liq = np.log(b_rows[span, 3]) - ky
+        sol = math.log(max(float(np.median(i4[run, 3][is_solid[run]])), 1e-4))
+        contrast = sol - liq
+        step_at = None
+        if float(np.median(np.abs(contrast))) >= PELLET_WEAK_EDGE_MIN:
+            z = (np.log(np.maximum(i4[span, 3], 1e-4)) - liq) / np.where(np.abs(contrast) > 1e-6, contrast, 1e-6)
+            like = z >= 0.5
+            # rows 0..e-1 liquid-like, e..end solid-like: disagreements for each e
+            above_bad = np.concatenate([[0], np.cumsum(like)])
+            below_bad = np.concatenate([np.cumsum((~like)[::-1])[::-1], [0]])
+            bad = above_bad + below_bad
+            e = int(np.argmin(bad))
+            if bad[e] <= PELLET_WEAK_EDGE_MAX_BAD * span.size:
+                step_at = e
+        if step_at is not None and step_at < span.size:
+            edge_row = float(rows[span[step_at]]) - 0.5
+            edge_spread = 1.0
+        else:
+            # no step to see: take the middle, sd = span / sqrt(12)
+            edge_row -= unknown_above / 2.0
     elif top_j >= 1 and dev[top_j] != dev[top_j - 1]:
         # linear interpolation between the last liquid row and the first solid row
         f = (half_level - dev[top_j - 1]) / (dev[top_j] - dev[top_j - 1])
@@ -1105,7 +1163,7 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     lab, sd, _ = _lab_stats(correction, px, int(srows.size))
     info["lab"] = lab
     # edge sd: quantisation (1/sqrt(12) px) ⊕ edge spread ⊕ inner-bottom position
-    edge_sd = max(1.0, float(unknown_above)) / math.sqrt(12.0)
+    edge_sd = max(1.0, edge_spread) / math.sqrt(12.0)
     sd_px = math.sqrt(edge_sd ** 2 + INNER_BOTTOM_SD_PX ** 2)
     height_mm = None if mm_per_px is None else float(height_px * mm_per_px)
     height_sd = None if mm_per_px is None else float(sd_px * mm_per_px)

@@ -79,7 +79,9 @@ __all__ = [
     "TurbidityCurve",
     "CURVE_SCHEMA",
     "fit_turbidity_curve",
+    "curve_from_measurements",
     "to_standard_units",
+    "standard_units_sd",
     "curve_to_json",
     "curve_from_json",
     "save_curve",
@@ -115,6 +117,9 @@ class TurbidityCurve:
     reading_range: tuple[float, float]
     method: str = "isotonic+pchip"
     source: str = ""
+    residual_rms: float = 0.0
+    """Root-mean-square of the standards' values about the curve (in ``unit``): 0 when the
+    readings rise with the values, > 0 where isotonic pooling had to merge inversions."""
 
     def __call__(self, reading):
         """Value in ``unit`` for τ ``reading`` (scalar or array), no range check."""
@@ -178,10 +183,79 @@ def fit_turbidity_curve(readings, values, *, unit: str, source: str = "") -> Tur
     iso = IsotonicRegression(increasing=True, out_of_bounds="clip").fit(r, v)
     kr = np.unique(r)
     kv = iso.predict(kr)
+    rms = float(np.sqrt(np.mean((iso.predict(r) - v) ** 2)))
     return TurbidityCurve(unit=unit, standards_reading=tuple(float(x) for x in r),
                           standards_value=tuple(float(x) for x in v),
                           knots_reading=tuple(float(x) for x in kr), knots_value=tuple(float(x) for x in kv),
-                          reading_range=(float(kr[0]), float(kr[-1])), source=source)
+                          reading_range=(float(kr[0]), float(kr[-1])), source=source, residual_rms=rms)
+
+
+def curve_from_measurements(measurements, values, *, unit: str, source: str = "") -> TurbidityCurve:
+    """Fit a curve to photographed standards, straight from the measure stage's results.
+
+    Parameters
+    ----------
+    measurements : sequence of tubevision.measure.TubeMeasurement
+        One per standard, in the same order as ``values`` (e.g. the tubes of one photo of
+        the series, :func:`tubevision.measure.measure_tube`).
+    values : sequence of float
+        The standards' known values in ``unit``.
+    unit : str, keyword-only
+        e.g. ``"McFarland"`` or ``"NTU"``.
+    source : str, keyword-only
+        Free text stored with the curve.
+
+    Returns
+    -------
+    TurbidityCurve — as :func:`fit_turbidity_curve` on the tubes' τ.
+
+    Raises
+    ------
+    TubevisionInputError
+        Lengths differ, a standard read as empty (no liquid), mixed turbidity methods
+        (banded and plain backdrop readings are not on one scale), or the errors of
+        :func:`fit_turbidity_curve`.
+    """
+    ms = list(measurements)
+    vs = list(values)
+    if len(ms) != len(vs):
+        raise TubevisionInputError(f"turbidity standards: {len(ms)} tubes but {len(vs)} values")
+    readings, methods = [], set()
+    for m, _ in zip(ms, vs):
+        if m.liquid is None:
+            raise TubevisionInputError(f"turbidity standards: tube T{m.index + 1} reads as empty")
+        readings.append(float(m.liquid.turbidity))
+        methods.add(m.liquid.turbidity_method)
+    if len(methods) > 1:
+        raise TubevisionInputError("turbidity standards: some tubes were read on the banded backdrop and "
+                                   "some on a plain one; photograph the series on one backdrop")
+    return fit_turbidity_curve(readings, vs, unit=unit, source=source)
+
+
+def standard_units_sd(curve: TurbidityCurve, reading: float, reading_sd: float) -> float | None:
+    """Standard uncertainty of a reading converted to the curve's unit.
+
+    The reading's sd goes through the curve's local slope (first-order propagation,
+    JCGM 100:2008 GUM §5.1.2, slope by a central difference over ±sd, which also covers
+    the curve's curvature), combined in quadrature with the curve's ``residual_rms``.
+    None outside the calibrated range (as :func:`to_standard_units`).
+
+    Examples
+    --------
+    >>> c = fit_turbidity_curve([0.0, 1.0, 2.0], [0.0, 2.0, 4.0], unit="NTU")
+    >>> round(standard_units_sd(c, 1.0, 0.05), 6)
+    0.1
+    """
+    if to_standard_units(curve, reading)[0] is None or not math.isfinite(reading_sd):
+        return None
+    lo, hi = curve.reading_range
+    h = max(abs(float(reading_sd)), 1e-9)
+    a, b = max(lo, reading - h), min(hi, reading + h)
+    if b <= a:
+        slope = 0.0
+    else:
+        slope = float(curve(b) - curve(a)) / (b - a)
+    return float(math.hypot(slope * reading_sd, curve.residual_rms))
 
 
 def to_standard_units(curve: TurbidityCurve, reading: float) -> tuple[float | None, str | None]:
@@ -211,6 +285,7 @@ def curve_to_json(curve: TurbidityCurve) -> str:
         "standards": [{"reading": a, "value": b} for a, b in zip(curve.standards_reading, curve.standards_value)],
         "knots": {"reading": list(curve.knots_reading), "value": list(curve.knots_value)},
         "valid_reading_range": list(curve.reading_range),
+        "residual_rms": curve.residual_rms,
     }
     return json.dumps(doc, indent=2, allow_nan=False)
 
@@ -243,7 +318,8 @@ def curve_from_json(text: str, where: str = "turbidity curve") -> TurbidityCurve
     return TurbidityCurve(unit=unit, standards_reading=tuple(a for a, _ in st),
                           standards_value=tuple(b for _, b in st), knots_reading=tuple(kr),
                           knots_value=tuple(kv), reading_range=(lo, hi),
-                          method=str(doc.get("method", "isotonic+pchip")), source=str(doc.get("source", "")))
+                          method=str(doc.get("method", "isotonic+pchip")), source=str(doc.get("source", "")),
+                          residual_rms=float(doc.get("residual_rms", 0.0) or 0.0))
 
 
 def save_curve(curve: TurbidityCurve, path) -> None:

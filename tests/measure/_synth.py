@@ -30,8 +30,11 @@ class SynthTube:
 
 def render(tubes, *, width=60, height=400, gap=40, banded=True, band_px=16, seed=0, noise=0.004,
            top_margin=30, fill_frac=0.7, backdrop_rgb=(0.85, 0.85, 0.85), dark_rgb=(0.04, 0.04, 0.04),
-           rack_rows=None):
-    """Render a row of tubes; returns (uint8 image, list of TubeRegion)."""
+           rack_rows=None, rack_value=0.06):
+    """Render a row of tubes; returns (uint8 image, list of TubeRegion).
+
+    ``rack_rows`` (row0, row1) draws a bar in front of everything, of linear level
+    ``rack_value`` (dark by default; a white rack is ~0.8)."""
     rng = np.random.default_rng(seed)   # seed fixes the sensor noise
     n = len(tubes)
     W = gap + n * (width + gap)
@@ -94,7 +97,7 @@ def render(tubes, *, width=60, height=400, gap=40, banded=True, band_px=16, seed
                                   bottom_top=int(round(centre_row)), inner_bottom=inner_bottom,
                                   source="layout"))
     if rack_rows is not None:
-        img[rack_rows[0]:rack_rows[1]] = 0.06
+        img[rack_rows[0]:rack_rows[1]] = rack_value
     img = img + rng.normal(0, noise, img.shape)
     enc = linear_to_srgb(np.clip(img, 0, 1))
     return np.round(enc * 255).astype(np.uint8), regions

@@ -243,3 +243,91 @@ def test_white_solid_found_through_dark_bands():
     _, _, (m,) = _measure([SynthTube(pellet_px=20)], banded=True)
     assert m.pellet.present
     assert m.pellet.height_mm == pytest.approx(2.0, abs=0.15)
+
+
+# ----------------------------------------------------------------- solid vs liquid (issue #6)
+
+DEEP_YELLOW = (0.0005, 0.01, 0.08)   # chromate-like: blue absorbance ~4 over the chord
+
+
+@pytest.mark.parametrize("banded", [True, False])
+def test_deep_yellow_solution_is_not_a_solid(banded):
+    """[synthetic] A deep yellow (chromate-like) solution darkens and colours the round
+    bottom less than the column (shorter chord), but it is liquid: no settled solid. The
+    same solution over a black solid 2 mm high does show the solid, at its height."""
+    _, _, (liq, dark) = _measure([SynthTube(absorb=DEEP_YELLOW),
+                                  SynthTube(absorb=DEEP_YELLOW, pellet_px=20, pellet_rgb=(0.03, 0.03, 0.03))],
+                                 banded=banded)
+    assert not liq.pellet.present
+    assert liq.liquid is not None and liq.liquid.lab[2] > 40          # it is read as yellow
+    assert dark.pellet.present
+    assert dark.pellet.height_mm == pytest.approx(2.0, abs=0.2)
+
+
+@pytest.mark.parametrize("banded", [True, False])
+def test_white_cloud_is_not_a_solid(banded):
+    """[synthetic] A uniform white suspension (cloudy, nothing settled) has no settled
+    solid, at a faint and at a heavy cloud, while its turbidity is read."""
+    _, _, ms = _measure([SynthTube(scatter=0.004), SynthTube(scatter=0.03)], banded=banded)
+    for m in ms:
+        assert not m.pellet.present, m.pellet
+    assert ms[1].liquid.turbidity > ms[0].liquid.turbidity > 0
+
+
+def test_white_rack_bar_is_left_out():
+    """[synthetic] A white rack bar across a blue liquid on the banded backdrop (it matches
+    the light bands beside the tube) is found by the hidden glass walls and left out: the
+    colour stays within 1 ΔE00 of the same liquid without the bar, and the turbidity
+    stays ~0 (the bar would otherwise read as light rows with no band contrast)."""
+    from tubevision.colorimetry import delta_e00
+
+    blue = SynthTube(absorb=(0.03, 0.01, 0.002), streak=False)
+    _, _, (ref,) = _measure([blue], banded=True, noise=0.002)
+    _, _, (m,) = _measure([blue], banded=True, noise=0.002, rack_rows=(280, 330), rack_value=0.8)
+    assert float(delta_e00(np.array(m.liquid.lab), np.array(ref.liquid.lab))) < 1.0
+    assert m.liquid.turbidity < 0.05
+
+
+def test_turbidity_sd_matches_the_spread_over_repeat_photos():
+    """[synthetic] The analytic turbidity sd (median standard errors through the formula,
+    GUM §5.1) agrees within a factor of 2 with the spread of τ over twelve renders that
+    differ only in sensor noise."""
+    taus, sds = [], []
+    for seed in range(12):
+        _, _, (m,) = _measure([SynthTube(scatter=0.004, streak=False)], banded=True, seed=seed, noise=0.01)
+        taus.append(m.liquid.turbidity_raw)
+        sds.append(m.liquid.turbidity_sd)
+    spread = float(np.std(taus, ddof=1))
+    assert 0.5 < float(np.mean(sds)) / spread < 2.0, (np.mean(sds), spread)
+
+
+def test_quality_warns_on_glare_over_most_of_a_tube():
+    """[synthetic] Glare clipped over most of the central third gives the glare warning."""
+    img, regs = render([SynthTube()], banded=False)
+    r = regs[0]
+    img[r.liquid_top:r.liquid_bottom, r.inner_col0:r.inner_col1 - 2] = 255
+    m = measure_tube(img, r, correction=None, mm_per_px=None)
+    assert any("glare" in w for w in m.warnings)
+
+
+# ----------------------------------------------------------------- scale at the tube
+
+def test_mm_per_px_at_matches_opencv_perspective():
+    """[published] The local scale from the card's homography equals the distance, in
+    card mm, between two photo points one pixel apart mapped back with OpenCV's
+    ``perspectiveTransform`` (an independent implementation of the projective map)."""
+    import cv2
+
+    from tubevision.measure import mm_per_px_at
+
+    mm = np.float32([[0, 0], [150, 0], [150, 100], [0, 100]])
+    px = np.float32([[1000, 500], [1620, 520], [1600, 930], [990, 900]])     # a tilted card
+    h = cv2.getPerspectiveTransform(mm, px)
+    for pt in [(1300.0, 700.0), (600.0, 1400.0), (2500.0, 300.0)]:
+        back = cv2.perspectiveTransform(np.float64([[pt, (pt[0], pt[1] + 1.0)]]), np.linalg.inv(h))[0]
+        expect = float(np.hypot(*(back[1] - back[0])))
+        assert mm_per_px_at(h, pt) == pytest.approx(expect, rel=1e-6)
+    # away from the card the scale differs: why heights use the tube's own position
+    assert mm_per_px_at(h, (600.0, 1400.0)) != pytest.approx(mm_per_px_at(h, (1300.0, 700.0)), rel=0.01)
+    with pytest.raises(TubevisionInputError):
+        mm_per_px_at(np.zeros((3, 3)), (0, 0))
