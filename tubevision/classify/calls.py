@@ -304,10 +304,15 @@ def classify_tube(measurement, *, model: StateModel | None = None) -> TubeCall:
             confidence = min(confidence * OUT_OF_RANGE_FACTOR, OUT_OF_RANGE_MAX_CONFIDENCE)
             warnings.append("features missing, filled with training medians: " + ", ".join(missing[:3])
                             + (f" and {len(missing) - 3} more" if len(missing) > 3 else ""))
-        # A tube the measure stage found without liquid is empty whatever the model says.
-        if liq is None and state != "empty":
-            warnings.append(f"no liquid measured but the model said {state}: called empty")
+        # The measure stage reports no liquid both for a tube with no meniscus and for a
+        # column it could not read (glare, bands, a hidden tube); the forest was trained on
+        # both and is kept, but the call says that no liquid colour backs it.
+        if liq is None and state != "empty" and "empty" not in model.classes:
+            warnings.append(f"no liquid measured and this model knows no empty tubes: called empty, not {state}")
             state, confidence = "empty", min(confidence, OUT_OF_RANGE_MAX_CONFIDENCE)
+        elif liq is None and state != "empty":
+            warnings.append(f"no liquid column measured but the model says {state}: no liquid colour word")
+            confidence = min(confidence, OUT_OF_RANGE_MAX_CONFIDENCE)
         elif liq is not None and state == "empty":
             warnings.append("the model said empty but a liquid column was measured")
             confidence = min(confidence, OUT_OF_RANGE_MAX_CONFIDENCE)
