@@ -772,7 +772,7 @@ def _outer_peak(prof: np.ndarray, us: np.ndarray, lo: float, hi: float, outer_si
 
 
 def _arc_scores(ev: _Evidence, a: float, b: float, r: float, ycs: np.ndarray, level: float,
-                polarity: float = 0.0) -> np.ndarray:
+                polarity: float = 0.0, mirror: bool = False) -> np.ndarray:
     """Round-bottom score for hemisphere centres at rows ``ycs`` (see :data:`ARC_SCORE_MIN`).
 
     Along the lower arc (40°-140° below the centre) the gradient g is compared with the
@@ -789,6 +789,11 @@ def _arc_scores(ev: _Evidence, a: float, b: float, r: float, ycs: np.ndarray, le
     rr = r + dr
     xc = a + b * ycs
     X = xc[:, None, None] + rr[None, :, None] * nx[None, None, :]
+    if mirror:
+        # the arcs mirrored about the wall lines: where the outline of two neighbouring
+        # tubes' bottoms runs when the pair's walls are those of a gap between them
+        X = xc[:, None, None] + np.sign(nx)[None, None, :] * 2 * r - rr[None, :, None] * nx[None, None, :]
+        nx = -nx
     Y = ycs[:, None, None] + rr[None, :, None] * ny[None, None, :]
     xi = np.clip(np.round(X).astype(int), 0, wd - 1)
     yi = np.clip(np.round(Y).astype(int), 0, h - 1)
@@ -972,6 +977,11 @@ def _verify(c, ev: _Evidence, out: list, pending: list) -> None:
     if chosen is None:
         return _reject(c, 114)
     yc = float(ycs[chosen])
+    # a gap between two tubes has walls too, but below them the outlines curve away
+    # (outward) rather than toward each other: the inward arc must beat the mirrored one
+    out_arc = _arc_scores(ev, a2, c.b, r, np.array([yc]), level, polarity, mirror=True)[0]
+    if np.isfinite(out_arc) and out_arc >= arc_f[chosen]:
+        return _reject(c, -2)
     length = yc + r - rim
     if not LENGTH_WIDTHS[0] <= length / w2 <= LENGTH_WIDTHS[1]:
         return _reject(c, 118)
