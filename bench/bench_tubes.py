@@ -251,7 +251,7 @@ def main(argv=None) -> int:
     if not args.no_12mp:
         import cv2
 
-        img, truth, quad, cond = photo(0, args.seed + 1, size=(2016, 1512))
+        img, truth, quad, cond = photo(3, args.seed + 1, size=(2016, 1512))   # a row of 12
         big = cv2.resize(img, (4032, 3024), interpolation=cv2.INTER_LINEAR)
         quad = None if quad is None else quad * 2
         find_tubes(big, exclude_quad=quad)   # warm-up (lazy imports)

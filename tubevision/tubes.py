@@ -298,11 +298,6 @@ MAX_GAP_WIDTHS = 1.5
 """Longest gap (in tube widths) a track may bridge (the rack's bar in front of the tubes),
 unless a round bottom ends the track above the gap."""
 
-ARC_MIN_EVIDENCE = 0.15
-"""Smallest round-bottom evidence (saturated wall gradient on the inward arc minus the
-outward arcs, :func:`_arc_evidence`) that confirms a tube; a gap between two tubes
-scores ≤ 0, a tube's bottom ≈ 0.5."""
-
 WALL_FRACTION = 0.07
 """Glass wall thickness as a fraction of the outer width (a 16 mm tube has ≈ 1.1 mm
 walls, common lab glassware, from memory)."""
@@ -487,12 +482,9 @@ class _Track:
         return cm + b * (s - sm)
 
 
-def _link(peaks: list, w: float, ends_round) -> list:
-    """Greedy strip-to-strip linking of peaks into tracks (step 3).
-
-    ``ends_round(strip, col)`` says whether a tube's round bottom lies just below
-    ``strip`` at ``col``; a gap is not bridged there (the next tube down starts).
-    """
+def _link(peaks: list, w: float) -> list:
+    """Greedy strip-to-strip linking of peaks into tracks (step 3); gaps up to
+    :data:`MAX_GAP_WIDTHS` are bridged."""
     max_gap = int(np.ceil(MAX_GAP_WIDTHS * w / STRIP_PX)) + 1
     done: list[_Track] = []
     active: list[_Track] = []
@@ -512,10 +504,6 @@ def _link(peaks: list, w: float, ends_round) -> list:
                 k = int(np.argmin(d))
                 if d[k] < 0.35 * w:
                     best = k
-            if best is not None:
-                t = active[best]
-                if s - t.s[-1] - 1 >= 2 and ends_round(t.s[-1], t.c[-1]):
-                    best = None
             if best is None:
                 active.append(_Track(s, c, v))
                 pred = np.append(pred[:-1], [np.inf, np.inf])
@@ -541,18 +529,6 @@ class _Candidate:
     arc: float = 0.0
 
 
-def _row_evidence(E: np.ndarray, a: float, b: float, w: float, rows: np.ndarray) -> np.ndarray:
-    """Per row, the weaker of the two walls' gradient (largest within the tolerance)."""
-    tol = max(1, int(round(WALL_TOLERANCE_FRACTION * w)))
-    h, wd = E.shape
-    rows = rows[(rows >= 0) & (rows < h)]
-    xc = a + b * rows
-    offs = np.arange(-tol, tol + 1)
-    out = []
-    for side in (-0.5, 0.5):
-        cols = np.clip(np.round(xc + side * w).astype(int)[:, None] + offs[None, :], 0, wd - 1)
-        out.append(E[rows[:, None], cols].max(axis=1))
-    return rows, np.minimum(out[0], out[1])
 
 
 def _candidates(rot: np.ndarray, valid: np.ndarray) -> list[_Candidate]:
@@ -590,7 +566,7 @@ def _candidates(rot: np.ndarray, valid: np.ndarray) -> list[_Candidate]:
     for k in range(-WIDTH_SPREAD_STEPS, WIDTH_SPREAD_STEPS + 1):
         if k:
             w = best_w * WIDTH_STEP_RATIO ** (2 * k)
-            found.extend(_verify_all(_tracks_at_width(Pn, En, gy, gxs, gray, w), ev))
+            found.extend(_verify_all(_tracks_at_width(Pn, En, gy, gxs, gray, w), ev, known=found))
     return _consistent_rows(_drop_overlapping_tubes(found))
 
 
@@ -601,17 +577,7 @@ def _tracks_at_width(Pn: np.ndarray, En: np.ndarray, gy: np.ndarray, gxs: np.nda
     S = _pair_score(Pn, w)
     nms = _hmax(S, int(round(0.6 * w)))
     peaks = _strip_peaks(S, nms, w)
-    memo: dict = {}
-
-    def ends_round(strip: int, col: float) -> bool:
-        key = (strip, int(round(col)))
-        if key not in memo:
-            end = (strip + 1) * STRIP_PX
-            bottom = _bottom_row(gy, col, 0.0, w, end)
-            memo[key] = _arc_evidence(En, gray, col, 0.0, w, bottom - w / 2) >= ARC_MIN_EVIDENCE
-        return memo[key]
-
-    tracks = _link(peaks, w, ends_round)
+    tracks = _link(peaks, w)
     out = []
     min_strips = MIN_LENGTH_WIDTHS * w / STRIP_PX
     for t in tracks:
@@ -622,22 +588,9 @@ def _tracks_at_width(Pn: np.ndarray, En: np.ndarray, gy: np.ndarray, gxs: np.nda
         b, a = np.polyfit(ys, np.asarray(t.c, float), 1)
         if abs(b) > np.tan(np.radians(ROLL_MAX_DEG)):
             continue
-        # rows: refine the rim and where the walls stop, per row
-        y0 = max(0, (t.s[0] - 2) * STRIP_PX)
-        y1 = min(h, (t.s[-1] + 3) * STRIP_PX)
-        rows, ev = _row_evidence(En, a, b, w, np.arange(y0, y1))
-        core = ev[(rows >= t.s[0] * STRIP_PX) & (rows < (t.s[-1] + 1) * STRIP_PX)]
-        level = float(np.median(core)) if core.size else 0.0
-        on = ev > 0.5 * level
-        top_est, end_est = t.s[0] * STRIP_PX, (t.s[-1] + 1) * STRIP_PX
-        top = _first_run(rows, on, top_est - 2 * STRIP_PX, top_est + 2 * STRIP_PX, 3, from_top=True)
-        end = _first_run(rows, on, end_est - 2 * STRIP_PX, end_est + 2 * STRIP_PX, 3, from_top=False)
-        top = top_est if top is None else top
-        end = end_est if end is None else end
-        bottom = _bottom_row(gy, a, b, w, end)
-        arc = _arc_evidence(En, gray, a, b, w, bottom - w / 2)
-        out.append(_Candidate(a=float(a), b=float(b), top=float(top), end=float(bottom - w / 2), w=float(w),
-                              strength=float(np.sum(t.v)), verified=arc >= ARC_MIN_EVIDENCE, arc=arc))
+        # the track's ends are only where :func:`_verify` starts looking for rim and bottom
+        out.append(_Candidate(a=float(a), b=float(b), top=float(t.s[0] * STRIP_PX),
+                              end=float((t.s[-1] + 1) * STRIP_PX), w=float(w), strength=float(np.sum(t.v))))
     return out
 
 
@@ -997,12 +950,27 @@ def _verify(c, ev: _Evidence, out: list, pending: list) -> None:
         pending.append(_Candidate(a=c.a, b=c.b, top=yc + 1.6 * w, end=c.end, w=c.w, strength=c.strength))
 
 
-def _verify_all(cands, ev: _Evidence) -> list[_Tube]:
+def _verify_all(cands, ev: _Evidence, known: list[_Tube] | None = None) -> list[_Tube]:
+    """Verify hypotheses; one whose axis runs within a tenth of a width of a ``known``
+    tube's over most of its rows is that tube again (found at another trial width) and
+    is not verified twice."""
     out: list[_Tube] = []
     pending = list(cands)
+    known = known or []
     while pending:
-        _verify(pending.pop(), ev, out, pending)
+        c = pending.pop()
+        if any(_same_axis(c, k) for k in known):
+            continue
+        _verify(c, ev, out, pending)
     return out
+
+
+def _same_axis(c, k: _Tube) -> bool:
+    y0, y1 = max(c.top, k.top), min(c.end, k.end)
+    if y1 - y0 < 0.5 * (c.end - c.top):
+        return False
+    ym = 0.5 * (y0 + y1)
+    return abs((c.a + c.b * ym) - (k.a + k.b * ym)) < 0.1 * k.w and abs(c.w / k.w - 1) < 0.2
 
 
 def _drop_overlapping_tubes(tubes: list[_Tube]) -> list[_Tube]:
@@ -1059,37 +1027,6 @@ def _vertical_edges(gray: np.ndarray) -> np.ndarray:
     return np.abs(cv2.Sobel(gray, cv2.CV_32F, 0, 1, ksize=3))
 
 
-def _bottom_row(gy: np.ndarray, a: float, b: float, w: float, end: float) -> float:
-    """Row of the outer bottom of the round bottom, from where the walls stop.
-
-    The walls' evidence lasts somewhat below the hemisphere's centre (the outline
-    stays within the wall tolerance for a while), so the bottom is between ``end``
-    and ``end + 0.8 w``: the lowest row there where the outline crosses the axis,
-    i.e. where the vertical gradient near the axis stands out over that beside the
-    glass (which carries the backdrop's own horizontal bands).
-    """
-    h, wd = gy.shape
-    r = w / 2
-    rows = np.arange(int(end - 0.2 * w), int(end + 0.8 * w) + 1)
-    rows = rows[(rows >= 0) & (rows < h)]
-    if rows.size < 3:
-        return end + 0.25 * w
-    xc = a + b * rows
-    q = max(1, int(round(r / 4)))
-    offs = np.arange(-q, q + 1)
-
-    def band(centre_off):
-        cols = np.clip(np.round(xc + centre_off).astype(int)[:, None] + offs[None, :], 0, wd - 1)
-        return gy[rows[:, None], cols].mean(axis=1)
-
-    axis = band(0.0)
-    beside = np.maximum(band(-1.6 * r), band(1.6 * r))
-    excess = axis - beside
-    peak = float(excess.max())
-    if peak <= 0:
-        return end + 0.25 * w
-    strong = np.nonzero(excess >= 0.5 * peak)[0]
-    return float(rows[strong[-1]]) + 1.0
 
 
 def _strip_peaks(S: np.ndarray, nms: np.ndarray, w: float) -> list:
@@ -1111,90 +1048,12 @@ def _strip_peaks(S: np.ndarray, nms: np.ndarray, w: float) -> list:
     return out
 
 
-def _arc_evidence(En: np.ndarray, gray: np.ndarray, a: float, b: float, w: float, centre: float) -> float:
-    """Round-bottom test: wall evidence along the inward arc (a tube's hemisphere)
-    minus that along the outward arcs (the neighbours' bottoms seen round a gap).
-
-    The bottom of a test tube is a hemisphere of the tube's radius r (geometry):
-    at depth dy below its centre the outline sits at ±r·sqrt(1 − (dy/r)²). Seen
-    between two tubes, the same outline curves away from the gap instead. Only
-    rows where the backdrop beside the tube is light count (a glass edge does
-    not show against a dark backdrop band).
-    """
-    h, wd = En.shape
-    r = w / 2
-    dys = np.linspace(0.2 * r, 0.85 * r, 10)
-    tol = max(1, int(round(WALL_TOLERANCE_FRACTION * w)))
-    offs = np.arange(-tol, tol + 1)
-    ys = np.round(centre + dys).astype(int)
-    if ys.min() < 0 or ys.max() >= h:
-        return 0.0
-    x = a + b * ys
-    hw = r * np.sqrt(1 - (dys / r) ** 2)
-    bl = gray[ys, np.clip(np.round(x - 1.6 * r).astype(int), 0, wd - 1)]
-    br = gray[ys, np.clip(np.round(x + 1.6 * r).astype(int), 0, wd - 1)]
-    beside = np.maximum(bl, br)
-    light = beside >= LIGHT_ROW_FRACTION * max(float(beside.max()), 1e-6)
-    if light.sum() < 3:
-        return 0.0
-    res = []
-    for half in (hw, 2 * r - hw):
-        sides = []
-        for sgn in (-1, 1):
-            cols = np.clip(np.round(x + sgn * half).astype(int)[:, None] + offs[None, :], 0, wd - 1)
-            sides.append(En[ys[:, None], cols].max(axis=1))
-        res.append(np.minimum(sides[0], sides[1])[light].mean())
-    inward, outward = res
-    return float(inward - outward)
 
 
-def _first_run(rows, on, lo, hi, run, *, from_top):
-    """First row (from the top, or last from the bottom) in [lo, hi) that starts/ends
-    ``run`` consecutive rows of evidence."""
-    sel = (rows >= lo) & (rows < hi)
-    r, o = rows[sel], on[sel]
-    if not from_top:
-        r, o = r[::-1], o[::-1]
-    for i in range(len(o) - run + 1):
-        if o[i:i + run].all():
-            return float(r[i]) if from_top else float(r[i]) + 1.0
-    return None
 
 
-def _drop_overlaps(cands: list[_Candidate]) -> list[_Candidate]:
-    """Where two tracks overlap (overlapping rows, and across by more than a tenth of
-    their width: tubes in a rack stand side by side), keep the better supported (wall
-    strength × round-bottom evidence)."""
-    keep: list[_Candidate] = []
-    for c in sorted(cands, key=lambda c: -(c.strength * max(c.arc, 1e-3))):
-        clash = False
-        for k in keep:
-            y0, y1 = max(c.top, k.top), min(c.end, k.end)
-            if y1 <= y0:
-                continue
-            ym = (y0 + y1) / 2
-            if abs((c.a + c.b * ym) - (k.a + k.b * ym)) < 0.45 * (c.w + k.w):
-                clash = True
-                break
-        if not clash:
-            keep.append(c)
-    return keep
 
 
-def _box_mean(f: np.ndarray, ok: np.ndarray, lo: int, hi: int) -> tuple[np.ndarray, np.ndarray]:
-    """Per row v, mean of f over the valid rows in [v + lo, v + hi) and their count."""
-    n = f.shape[0]
-    fz = np.where(ok[:, None], f, 0.0) if f.ndim == 2 else np.where(ok, f, 0.0)
-    cs = np.concatenate([np.zeros((1,) + fz.shape[1:]), np.cumsum(fz, axis=0)])
-    cn = np.concatenate([[0], np.cumsum(ok.astype(float))])
-    v = np.arange(n)
-    a = np.clip(v + lo, 0, n)
-    b = np.clip(v + hi, 0, n)
-    cnt = cn[b] - cn[a]
-    s = cs[b] - cs[a]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        m = s / (cnt[:, None] if f.ndim == 2 else cnt)
-    return m, cnt
 
 
 def _meniscus(inner: np.ndarray, beside: np.ndarray, flat: np.ndarray, lo: int, hi: int,
