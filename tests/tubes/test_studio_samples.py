@@ -1,0 +1,115 @@
+"""Tube finding on the studio's sample photos (sample_images/, renders with truth beside).
+
+Kinds (tubevision STYLE §6): [synthetic] studio renders (tubevision.studio, invented
+scenes) read from their JPEG files through :func:`tubevision.image.load_photo`, so the
+EXIF orientation is applied as for a user's photo; the truth JSON beside each photo comes
+from the renderer's geometry, not from the finder.
+
+What a user cares about: every tube found once, no false tube in the record, boxes from
+rim to bottom (IoU ≥ 0.85, the issue's mean-IoU target held per tube), the liquid top
+within the issue's 1 mm on average, empty tubes without a liquid top, reading order.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from tubevision.image import load_photo
+from tubevision.tubes import find_tubes
+
+SAMPLES = Path(__file__).resolve().parents[2] / "sample_images"
+IOU_MIN = 0.85
+LIQUID_TOP_MEAN_MM = 1.0      # issue 5 target
+LIQUID_TOP_MAX_MM = 2.0       # per tube: a meniscus hidden in a dark band of the printed backdrop
+                              # is placed in the band's middle, ≤ half its 4 mm width away
+
+
+def _iou(a, b) -> float:
+    x0, y0, x1, y1 = max(a[0], b[0]), max(a[1], b[1]), min(a[2], b[2]), min(a[3], b[3])
+    inter = max(0, x1 - x0) * max(0, y1 - y0)
+    return inter / ((a[2] - a[0]) * (a[3] - a[1]) + (b[2] - b[0]) * (b[3] - b[1]) - inter)
+
+
+def _load(stem: str):
+    photo = load_photo(SAMPLES / f"{stem}.jpg")
+    truth = json.loads((SAMPLES / f"{stem}.truth.json").read_text(encoding="utf-8"))
+    quad = truth["card"]["corners_px"] if truth.get("card") else None
+    return photo, truth, find_tubes(photo.pixels, exclude_quad=quad)
+
+
+def _pairs(finding, truth):
+    """Each found region with its best truth tube; every region must match one (no false
+    tube) and every truth tube must be matched once."""
+    pairs = []
+    for r in finding.regions:
+        ious = [_iou(r.bbox, t["bbox"]) for t in truth["tubes"]]
+        k = int(np.argmax(ious))
+        assert ious[k] >= 0.5, f"false tube {r.bbox}"
+        pairs.append((truth["tubes"][k], r, ious[k]))
+    assert sorted(t["index"] for t, _, _ in pairs) == list(range(len(truth["tubes"]))), \
+        [r.bbox for r in finding.regions]
+    return pairs
+
+
+@pytest.mark.parametrize("stem", ["mixed-plain-d65", "turbidity-series-hbands", "demo-chloride-step",
+                                  "two-rows-fl11", "rotated-exif6-led"])
+def test_sample_tubes_found_once_with_tight_boxes_and_liquid_tops(stem):
+    """[synthetic] Plain and banded backdrops, the demo render (banded, card beside), two
+    rack rows, a photo stored turned with EXIF orientation 6: every tube once, boxes
+    IoU ≥ 0.85 in upright pixels, liquid tops within 1 mm on average (≤ 2 mm each) where
+    the finder gives one, none for the empty tube."""
+    photo, truth, finding = _load(stem)
+    assert (photo.pixels.shape[1], photo.pixels.shape[0]) == tuple(truth["size"])   # upright
+    pairs = _pairs(finding, truth)
+    errs = []
+    for t, r, v in pairs:
+        assert v >= IOU_MIN, (t["index"], r.bbox, t["bbox"])
+        if t["liquid_top"] is None:
+            assert r.liquid_top is None, (t["index"], r.liquid_top)
+        elif r.liquid_top is not None:
+            errs.append(abs(r.liquid_top - t["liquid_top"]) * truth["mm_per_px"])
+    if errs:
+        assert max(errs) <= LIQUID_TOP_MAX_MM, errs
+        assert float(np.mean(errs)) <= LIQUID_TOP_MEAN_MM, errs
+    assert finding.warnings == ()
+
+
+@pytest.mark.parametrize("stem", ["mixed-plain-d65", "turbidity-series-hbands", "two-rows-fl11"])
+def test_liquid_top_found_for_every_filled_tube(stem):
+    """[synthetic] Colourless water included: on these photos no filled tube is taken
+    for an empty one."""
+    _, truth, finding = _load(stem)
+    for t, r, _ in _pairs(finding, truth):
+        if t["liquid_top"] is not None:
+            assert r.liquid_top is not None, (t["index"], t["contents"])
+
+
+def test_two_rows_reading_order():
+    """[synthetic] Two rack rows: rows top to bottom, left to right within a row, as the
+    truth (reading order by construction of the scene) numbers them."""
+    _, truth, finding = _load("two-rows-fl11")
+    got = [max(range(len(truth["tubes"])), key=lambda k: _iou(r.bbox, truth["tubes"][k]["bbox"]))
+           for r in finding.regions]
+    assert got == list(range(len(truth["tubes"])))
+    assert [r.row for r in finding.regions] == [t["row"] for t in truth["tubes"]]
+    assert [r.index for r in finding.regions] == list(range(len(finding.regions)))
+
+
+def test_vertical_bands_give_no_false_tube():
+    """[synthetic] A backdrop of dark vertical bands makes pairs of vertical edges at any
+    width; none of them may be reported as a tube (a false tube pollutes the record)."""
+    _, truth, finding = _load("vbands-warm")
+    for r in finding.regions:
+        assert max(_iou(r.bbox, t["bbox"]) for t in truth["tubes"]) >= 0.5, f"false tube {r.bbox}"
+
+
+@pytest.mark.xfail(strict=True, reason="known shortfall: tubes in front of dark vertical bands are not "
+                                       "found (their walls vanish against the dark bands)")
+def test_vertical_bands_tubes_found():
+    """[synthetic] The tubes in front of vertical bands are all found."""
+    _, truth, finding = _load("vbands-warm")
+    _pairs(finding, truth)
