@@ -383,7 +383,9 @@ class LiquidMeasurement:
     residual; ``colour_uncertainty_de00`` the combined colour uncertainty;
     ``turbidity_method`` ``"band-contrast"`` or ``"plain-veil"``;
     ``turbidity_standard`` the reading in the standards' unit through a fitted curve
-    (None without a curve or outside its range).
+    (None without a curve or outside its range), ``turbidity_standard_sd`` its standard
+    uncertainty (the reading's sd through the curve's slope, with the curve's residual;
+    :func:`tubevision.turbidity.standard_units_sd`).
     """
 
     lab: tuple[float, float, float]
@@ -399,6 +401,7 @@ class LiquidMeasurement:
     turbidity_method: str = "band-contrast"
     turbidity_standard: float | None = None
     turbidity_standard_unit: str | None = None
+    turbidity_standard_sd: float | None = None
 
 
 @dataclass(frozen=True)
@@ -773,12 +776,14 @@ def measure_tube(pixels: np.ndarray, region, *, correction=None, mm_per_px: floa
         tau = _turbidity(inner_y, inner_rgb, good, use_light, use_dark, beside_y, beside_rgb, banded,
                          highlight, air)
         de_sem = float(np.linalg.norm(lab_sem))
-        t_std, t_unit = None, None
+        t_std, t_unit, t_std_sd = None, None, None
         if turbidity_curve is not None:
-            from .turbidity import to_standard_units
+            from .turbidity import standard_units_sd, to_standard_units
 
             t_std, w = to_standard_units(turbidity_curve, tau["value"])
             t_unit = turbidity_curve.unit
+            if t_std is not None and np.isfinite(tau["sd"]):
+                t_std_sd = standard_units_sd(turbidity_curve, tau["value"], float(tau["sd"]))
             if w:
                 warnings.append(f"{tid}: {w}")
         liquid = LiquidMeasurement(
@@ -787,7 +792,7 @@ def measure_tube(pixels: np.ndarray, region, *, correction=None, mm_per_px: floa
             clipped_fraction=clipped_fraction, lab_sem=tuple(float(v) for v in lab_sem),
             calibration_de00=cal_de, colour_uncertainty_de00=float(math.hypot(de_sem, cal_de)),
             turbidity_raw=float(tau["raw"]), turbidity_method=tau["method"],
-            turbidity_standard=t_std, turbidity_standard_unit=t_unit)
+            turbidity_standard=t_std, turbidity_standard_unit=t_unit, turbidity_standard_sd=t_std_sd)
         if n_good < MIN_LIQUID_PIXELS:
             warnings.append(f"{tid}: too few pixels measured ({n_good} < {MIN_LIQUID_PIXELS}); "
                             "move closer or use a higher resolution")
@@ -1183,8 +1188,10 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     # edge sd: quantisation (1/sqrt(12) px) ⊕ edge spread ⊕ inner-bottom position
     edge_sd = max(1.0, edge_spread) / math.sqrt(12.0)
     sd_px = math.sqrt(edge_sd ** 2 + INNER_BOTTOM_SD_PX ** 2)
-    height_mm = None if mm_per_px is None else float(height_px * mm_per_px)
-    height_sd = None if mm_per_px is None else float(sd_px * mm_per_px)
+    # rows are counted vertically; a tube leaning by θ has its axis 1/cos θ longer
+    lean = 1.0 / max(math.cos(math.radians(float(getattr(region, "axis_angle_deg", 0.0) or 0.0))), 0.5)
+    height_mm = None if mm_per_px is None else float(height_px * lean * mm_per_px)
+    height_sd = None if mm_per_px is None else float(sd_px * lean * mm_per_px)
     return PelletMeasurement(present=True, height_mm=height_mm, height_mm_sd=height_sd,
                              lab=tuple(float(v) for v in lab), lab_sd=tuple(float(v) for v in sd),
                              n_pixels=int(px.shape[0]), height_px=float(height_px),

@@ -232,6 +232,7 @@ def test_turbidity_curve_fills_standard_units():
     m = measure_tube(img, regs[0], correction=None, mm_per_px=None, turbidity_curve=curve)
     assert m.liquid.turbidity_standard_unit == "McFarland"
     assert m.liquid.turbidity_standard == pytest.approx(2.0, abs=0.3)
+    assert 0 < m.liquid.turbidity_standard_sd < 0.3
 
 
 def test_white_solid_found_through_dark_bands():

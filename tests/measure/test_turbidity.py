@@ -63,3 +63,55 @@ def test_bad_input():
         curve_from_json('{"schema": "other"}')
     with pytest.raises(TubevisionInputError, match="not found"):
         load_curve("/nonexistent/curve.json")
+
+
+def test_curve_from_measured_standards_reproduces_them():
+    """[synthetic] Rendered standards (a scattering suspension at five strengths on the
+    banded backdrop, tests/measure/_synth.py) measured by the measure stage and fitted with
+    curve_from_measurements give back each standard's value at its own reading, and a
+    reading between two standards lands between their values."""
+    from tubevision.measure import measure_tube
+    from tubevision.turbidity import curve_from_measurements
+
+    from ._synth import SynthTube, render
+
+    img, regs = render([SynthTube(scatter=s) for s in (0.0, 0.002, 0.004, 0.008, 0.016)], banded=True)
+    ms = [measure_tube(img, r, correction=None, mm_per_px=None) for r in regs]
+    values = [0.0, 0.5, 1.0, 2.0, 4.0]
+    c = curve_from_measurements(ms, values, unit="McFarland", source="invented series")
+    got = [to_standard_units(c, m.liquid.turbidity)[0] for m in ms]
+    np.testing.assert_allclose(got, values, atol=1e-9)
+    assert c.residual_rms == pytest.approx(0.0, abs=1e-12)
+    mid = 0.5 * (ms[2].liquid.turbidity + ms[3].liquid.turbidity)
+    assert 1.0 < to_standard_units(c, mid)[0] < 2.0
+
+
+def test_curve_from_measurements_refuses_mixed_backdrops():
+    """Standards read partly on the banded and partly on a plain backdrop are not one scale."""
+    from tubevision.measure import measure_tube
+    from tubevision.turbidity import curve_from_measurements
+
+    from ._synth import SynthTube, render
+
+    a, ra = render([SynthTube(), SynthTube(scatter=0.004)], banded=True)
+    b, rb = render([SynthTube(scatter=0.016)], banded=False)
+    ms = [measure_tube(a, r, correction=None, mm_per_px=None) for r in ra] + \
+        [measure_tube(b, rb[0], correction=None, mm_per_px=None)]
+    with pytest.raises(TubevisionInputError, match="backdrop"):
+        curve_from_measurements(ms, [0, 1, 2], unit="NTU")
+    with pytest.raises(TubevisionInputError, match="values"):
+        curve_from_measurements(ms, [0, 1], unit="NTU")
+
+
+def test_standard_units_sd_follows_the_slope_and_the_residual():
+    """[synthetic] On a straight curve of slope 4 a reading's sd becomes 4× in the unit; a
+    curve that pooled an inversion carries its residual into every converted sd; outside
+    the range there is no sd."""
+    from tubevision.turbidity import standard_units_sd
+
+    c = fit_turbidity_curve([0.0, 0.25, 0.5, 1.0], [0.0, 1.0, 2.0, 4.0], unit="NTU")
+    assert standard_units_sd(c, 0.5, 0.01) == pytest.approx(0.04, rel=1e-6)
+    pooled = fit_turbidity_curve([0.0, 0.2, 0.3, 0.6], [0.0, 2.0, 1.0, 4.0], unit="NTU")
+    assert pooled.residual_rms > 0
+    assert standard_units_sd(pooled, 0.4, 1e-6) >= pooled.residual_rms
+    assert standard_units_sd(c, 5.0, 0.01) is None
