@@ -306,6 +306,13 @@ MENISCUS_MIN_SCORE = 0.08
 """Smallest dip + step of the inside/beside ratio that counts as a meniscus; an empty
 tube's ratio is flat to ≈ 0.02 (sensor noise), a water meniscus dips by > 0.2."""
 
+MENISCUS_FALLBACK_SCORE = 0.05
+"""Where no meniscus reaches :data:`MENISCUS_MIN_SCORE` (its dark line hidden in a dark
+band), a step this large still marks the top of a clear liquid: a filled tube loses light
+at two air-glass surfaces, an empty one at four (Fresnel, ≈ 4 % each at n = 1.5; Hecht,
+*Optics*, 5th ed., 2017, Sec. 4.6), so water raises the inside/beside ratio by ≈ 8 %; an
+empty tube's ratio is flat to ≈ 0.02."""
+
 EDGE_MARGIN_FRACTION = 0.05
 """Rows within this fraction of the tube width of a dark backdrop band or an occluder
 are left out of the meniscus search (their inside/beside ratio is unreliable)."""
@@ -1069,25 +1076,38 @@ def _meniscus(inner: np.ndarray, beside: np.ndarray, flat: np.ndarray, lo: int, 
     R = inner / np.maximum(beside, 1e-4)
     m = max(2, int(round(EDGE_MARGIN_FRACTION * w_full)))
     light = beside_l > LIGHT_ROW_FRACTION * ref
-    found = []
     # the light rows; then the rows of dark backdrop bands, on their own (a cloudy liquid
     # shows most over dark bands, where its scattered light adds to little; the ratio is
-    # noisier there, hence the higher threshold); the top-most meniscus found wins
-    for cls, min_score in ((light, MENISCUS_MIN_SCORE),
-                           (~light & (beside_l > DARK_ROW_MIN_FRACTION * ref), DARK_ROW_SCORE_FACTOR * MENISCUS_MIN_SCORE)):
+    # noisier there, hence the higher threshold); the top-most meniscus found wins; with
+    # none, the light rows again at the fallback threshold
+    classes = [(light, MENISCUS_MIN_SCORE),
+               (~light & (beside_l > DARK_ROW_MIN_FRACTION * ref), DARK_ROW_SCORE_FACTOR * MENISCUS_MIN_SCORE),
+               (light, MENISCUS_FALLBACK_SCORE)]
+    # rows well inside dark bands (the edge margin off their edges): where a meniscus
+    # hidden in a band is placed from the step of the ratio there
+    dark_rows = np.convolve((~classes[1][0]).astype(float), np.ones(2 * m + 1), mode="same") == 0
+    found = []
+    for k, (cls, min_score) in enumerate(classes):
+        if k == 2 and found:
+            break
         bad = ~cls | flat
         # leave out a margin at each edge of a dark band or occluder: the inner and beside
         # samples cross a slightly slanted edge at slightly different rows
         bad = np.convolve(bad.astype(float), np.ones(2 * m + 1), mode="same") > 0
-        v = _meniscus_rows(R, ~bad, flat, lo, hi, w_full, min_score)
+        v = _meniscus_rows(R, ~bad, flat, lo, hi, w_full, min_score, dark_rows if k != 1 else None)
         if v is not None:
             found.append(v)
     return min(found) if found else None
 
 
 def _meniscus_rows(R: np.ndarray, ok: np.ndarray, flat: np.ndarray, lo: int, hi: int, w_full: float,
-                   min_score: float) -> int | None:
-    """:func:`_meniscus` over the rows ``ok`` of the inside/beside ratio ``R`` (NV, 3)."""
+                   min_score: float, dark_rows: np.ndarray | None = None) -> int | None:
+    """:func:`_meniscus` over the rows ``ok`` of the inside/beside ratio ``R`` (NV, 3).
+
+    A meniscus found just below a gap of left-out rows (a dark band) lies inside the gap;
+    it is placed where the ratio over the band's own rows (``dark_rows``) crosses half-way
+    from its level over the dark rows above to that below, else in the gap's middle.
+    """
     # work on the valid rows only, in order: a step or dip is judged against the
     # nearest valid rows above and below, however far a dark band pushes them; none
     # above ``lo`` (the rim and its lip would pass for a step)
@@ -1147,7 +1167,24 @@ def _meniscus_rows(R: np.ndarray, ok: np.ndarray, flat: np.ndarray, lo: int, hi:
     gap = slice(int(vv[j - 1]) + 1, v)
     if flat[gap].mean() > 0.5:
         return v                       # hidden behind an occluder: first visible liquid row
-    return int(round((vv[j - 1] + v) / 2))   # inside a dark band: its middle
+    g0, g1 = int(vv[j - 1]) + 1, v
+    if dark_rows is not None:
+        Rd = R.mean(axis=1)
+        idx = np.nonzero(dark_rows)[0]
+        inside = idx[(idx >= g0) & (idx < g1)]
+        above_d = idx[(idx < g0) & (idx >= lo)]
+        below_d = idx[(idx >= g1) & (idx < g1 + 3 * (g1 - g0))]
+        if inside.size >= 3 and above_d.size >= 3 and below_d.size >= 3:
+            top_l, bot_l = float(np.median(Rd[above_d])), float(np.median(Rd[below_d]))
+            if abs(bot_l - top_l) >= MENISCUS_FALLBACK_SCORE:
+                half = 0.5 * (top_l + bot_l)
+                past = (Rd[inside] - half) * np.sign(bot_l - top_l) > 0
+                if past.all():
+                    return g0                   # the meniscus sits at the band's upper edge
+                if not past.any():
+                    return g1                   # ... at its lower edge
+                return int(inside[int(np.argmax(past))])
+    return int(round((g0 + g1 - 1) / 2))       # inside a dark band: its middle
 
 
 BAND_ALIGN_MAX_FRACTION = 0.1
