@@ -95,6 +95,13 @@ behind it. So, along a strip on the tube's axis, for each row from the inside bo
    few rows at band edges) brings A within :data:`PELLET_MIN_OPACITY` of the liquid's
    (:func:`_opacity_dev`; colour channels weighted by :data:`PELLET_CHANNEL_WEIGHTS`).
 
+In the round bottom the glass and liquid form a lens curved both ways (a filled
+hemisphere is a ball lens, focal length ~ n·D / (4(n − 1)) ≈ 1.0·D for water, Hecht,
+Optics, 5th ed., §5.2): through liquid it shows the bands behind displaced, inverted or
+rescaled, out of register with the backdrop beside the tube. So there a row counts as
+opaque only where the view below it is also flat: where it shows band texture
+(:func:`_band_texture`) it is liquid, however it compares with the strip beside it.
+
 The solid is one run of opaque rows from the bottom upward, at least
 :data:`PELLET_MIN_HEIGHT_MM` high (or :data:`PELLET_MIN_HEIGHT_PX` without a scale);
 rows where this solid would look like the liquid (a white solid over a light band) and
@@ -237,6 +244,10 @@ PELLET_BOTTOM_SHIFT_FRACTION = 0.03
 both directions that shifts the band edges behind vertically too (chosen: 8 px on 100)."""
 
 PELLET_K_STEPS = 7
+
+PELLET_TEXTURE_MIN = 0.15
+"""Smallest range of ln(luminance) over a band height of rows counted as band texture seen
+through the round bottom (16 %; far above row noise, ~1 %; chosen)."""
 
 PELLET_STRIP_MAX_COLS = 16
 """At most about this many columns of the axis strip are read for the solid (every n-th)."""
@@ -989,6 +1000,40 @@ def _opacity_dev(ln_i, ln_b, a_ref, k_lo, k_hi, shift) -> np.ndarray:
     return best
 
 
+def _band_texture(i_y, b_y, cls_light, cls_dark, t_y, s_y, banded: bool, stop: int) -> np.ndarray:
+    """Rows below which the view through the tube shows band texture (light and dark).
+
+    For each row, the range of ln(luminance) through the tube over the next band height of
+    rows (down to ``stop``) is compared with the contrast the liquid would show between the
+    backdrop's light and dark bands (model I = T·B + S with the liquid's ``t_y``, ``s_y``):
+    at least half of it, and at least :data:`PELLET_TEXTURE_MIN` (so that sensor noise over a
+    flat surface never counts), is texture. Always False on a plain backdrop (nothing to
+    image). A window looking downward keeps the top rows of a solid flat.
+    """
+    n = i_y.size
+    out = np.zeros(n, bool)
+    if not banded or cls_light.sum() < 2 or cls_dark.sum() < 2 or stop < 3:
+        return out
+    bl, bd = float(np.median(b_y[cls_light])), float(np.median(b_y[cls_dark]))
+    contrast = abs(math.log(max(t_y * bl + s_y, 1e-4)) - math.log(max(t_y * bd + s_y, 1e-4)))
+    thr = max(PELLET_TEXTURE_MIN, 0.5 * contrast)
+    # band height: median length of the interior runs of light or dark beside rows
+    runs = [b - a for a, b, v in _runs(cls_light | ~cls_dark) if a > 0 and b < n]
+    band = int(np.median(runs)) if runs else 8
+    wdw = max(3, band)
+    ly = np.log(np.maximum(i_y[:stop], 1e-4))
+    if ly.size < wdw:
+        return out
+    from numpy.lib.stride_tricks import sliding_window_view
+
+    win = sliding_window_view(np.concatenate([ly, np.full(wdw - 1, np.nan)]), wdw)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        rng_ = np.nanmax(win, axis=1) - np.nanmin(win, axis=1)
+    out[:stop] = rng_ >= thr
+    return out
+
+
 def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_rows, banded, beside_y,
                  beside_rgb):
     """Settled solid at the bottom (module docstring). Returns (PelletMeasurement, info)."""
@@ -1078,6 +1123,13 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     # blur): they can neither confirm nor end a solid
     is_solid[rows.size - skip:] = False
     unknown[rows.size - skip:] = True
+    # the round bottom is a lens curved both ways: through liquid it shows the bands behind
+    # displaced, inverted or rescaled, so a row there need not match the backdrop beside it.
+    # What a liquid does show there is band texture; an opaque layer is flat.
+    textured = _band_texture(i4[:, 3], b_rows[:, 3], cls_light, cls_dark, t_c[3], s_c[3], banded,
+                             rows.size - skip)
+    in_bottom = rows >= bt
+    is_solid &= ~(textured & in_bottom)
     if is_solid.any():
         # rows where this solid would look like the liquid (a white solid over the light
         # bands, a dark one over the dark bands) can neither confirm nor end it
@@ -1101,6 +1153,7 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
         dev_s[low] = _opacity_dev(np.broadcast_to(ln_s, (int(low.sum()), 4)), ln_b[low], a_ref[low],
                                   k_lo[low], k_hi[low], shift[low])
         unknown |= ~is_solid & (dev_s < PELLET_MIN_OPACITY)
+    unknown &= ~(textured & in_bottom)          # band texture seen: liquid, the walk ends there
     allowed = is_solid | unknown
     last = len(rows) - 1
     j = last

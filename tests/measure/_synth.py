@@ -26,6 +26,7 @@ class SynthTube:
     pellet_rgb: tuple[float, float, float] = (0.85, 0.85, 0.85)  # linear reflectance
     empty: bool = False
     streak: bool = True
+    lens_bottom: float = 0.0        # round-bottom vertical lens: backdrop row seen = centre − m·(row − centre)
 
 
 def render(tubes, *, width=60, height=400, gap=40, banded=True, band_px=16, seed=0, noise=0.004,
@@ -73,11 +74,19 @@ def render(tubes, *, width=60, height=400, gap=40, banded=True, band_px=16, seed
                 ins = inner
                 ch = chord
             has_liquid = (liquid_top is not None) and row >= liquid_top
+            seen = back[row]
+            if t.lens_bottom and row > centre_row:
+                # the filled hemisphere is a ball lens: it shows an inverted, magnified strip of
+                # the backdrop (a real round bottom does; the studio does not model it)
+                src = int(round(centre_row - t.lens_bottom * (row - centre_row)))
+                seen = back[min(max(src, 0), H - 1)]
+                if has_liquid:
+                    line[ins] = seen[None, :]
             if has_liquid:
                 L = ch[:, None]
                 T = np.exp(-(a[None, :] + t.scatter) * L)
                 S = 0.9 * (1 - np.exp(-t.scatter * L))
-                val = back[row][None, :] * T + S
+                val = seen[None, :] * T + S
                 line[ins] = val[ins]
             line[ins] *= 0.97          # glass transmission, both walls
             rim = ~ins

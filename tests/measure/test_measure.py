@@ -332,3 +332,18 @@ def test_mm_per_px_at_matches_opencv_perspective():
     assert mm_per_px_at(h, (600.0, 1400.0)) != pytest.approx(mm_per_px_at(h, (1300.0, 700.0)), rel=0.01)
     with pytest.raises(TubevisionInputError):
         mm_per_px_at(np.zeros((3, 3)), (0, 0))
+
+
+@pytest.mark.parametrize("lens", [2.0, 3.0])
+def test_round_bottom_lens_is_not_a_solid(lens):
+    """[synthetic] A filled round bottom is a ball lens: it shows the bands behind inverted
+    and rescaled, out of register with the backdrop beside the tube (geometric optics; a
+    real tube does this, the studio does not). Clear water and a yellow solution there
+    show band texture and are not read as solids; black and white solids, flat, still are."""
+    tubes = [SynthTube(lens_bottom=lens), SynthTube(absorb=DEEP_YELLOW, lens_bottom=lens),
+             SynthTube(pellet_px=20, pellet_rgb=(0.03, 0.03, 0.03), lens_bottom=lens),
+             SynthTube(pellet_px=20, lens_bottom=lens)]
+    _, _, (water, yellow, black, white) = _measure(tubes, banded=True)
+    assert not water.pellet.present and not yellow.pellet.present
+    assert black.pellet.present and black.pellet.height_mm == pytest.approx(2.0, abs=0.2)
+    assert white.pellet.present
