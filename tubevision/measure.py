@@ -950,13 +950,14 @@ def _turbidity(inner_y, inner_rgb, good, use_light, use_dark, beside_y, beside_r
     return dict(value=max(0.0, raw), raw=raw, sd=sd, ratio=1.0, method="plain-veil")
 
 
-def _opacity_dev(ln_i, ln_b, a_ref, k_lo, k_hi, shift) -> np.ndarray:
+def _opacity_dev(ln_i, ln_b, model, k_lo, k_hi, shift) -> np.ndarray:
     """Per row, how far the light seen through the tube is from any liquid-like reading.
 
-    ``ln_i`` (n, 3) log of the light through the tube, ``ln_b`` (n, 3) log of the backdrop
-    beside it, ``a_ref`` (n, 3) the liquid's full-chord absorbance −ln(I/B) predicted for
-    each row's backdrop. A liquid row satisfies −ln(I/B) = k·a_ref for one k in
-    [k_lo, k_hi] (Beer–Lambert over the row's chord). Returned: the smallest max-channel
+    ``ln_i`` (n, C) log of the light through the tube, ``ln_b`` (n, C) log of the backdrop
+    beside it, ``model`` = (T, S) per channel, the liquid's full-chord transmittance and veil
+    (I = T·B + S). Over a chord shorter by k (in [k_lo, k_hi]) a liquid row reads
+    I = B·T^k + S·g with g between k (thin veil, growing with the path) and 1 (saturated veil):
+    Beer–Lambert for T, the two limits of a scattering layer for S. Returned: the smallest max-channel
     |difference| (channels weighted by :data:`PELLET_CHANNEL_WEIGHTS`) over k (a grid of
     :data:`PELLET_K_STEPS`) and over the beside readings up to ``shift`` rows away (per
     row): the view through the tube and the strip beside it may be out of register by a
@@ -969,12 +970,22 @@ def _opacity_dev(ln_i, ln_b, a_ref, k_lo, k_hi, shift) -> np.ndarray:
     shift = np.broadcast_to(np.asarray(shift, dtype=int), (n,))
     w = PELLET_CHANNEL_WEIGHTS[:nc]
 
+    t_c, s_c = model
+    ln_t = np.log(np.maximum(np.asarray(t_c, float), 1e-6))
+
     def dev_at(rows_i, j):
-        # predicted log light through the liquid, given the backdrop reading of row j
-        pred = ln_b[j][:, None, :] - np.minimum(kk[rows_i][:, :, None] * a_ref[j][:, None, :],
-                                                PELLET_MAX_ABSORBANCE)
-        obs = np.maximum(ln_i[rows_i], ln_b[j] - PELLET_MAX_ABSORBANCE)[:, None, :]  # darker reads as the cap
-        return (np.abs(obs - pred) * w).max(axis=2).min(axis=1)
+        # predicted light through the liquid over the chord ratio k, given the backdrop
+        # reading of row j: I = B·T^k + S·g, the veil g between k (thin) and 1 (saturated)
+        k = kk[rows_i]                                                     # (m, K)
+        tk = np.exp(k[:, :, None] * ln_t[None, None, :])                    # (m, K, C)
+        g = np.stack([k, np.sqrt(k), np.ones_like(k)], axis=2)              # (m, K, G)
+        b_j = np.exp(ln_b[j])
+        i_pred = b_j[:, None, None, :] * tk[:, :, None, :] + s_c[None, None, None, :] * g[:, :, :, None]
+        floor = (ln_b[j] - PELLET_MAX_ABSORBANCE)[:, None, None, :]
+        pred = np.maximum(np.log(np.maximum(i_pred, 1e-6)), floor)
+        obs = np.maximum(ln_i[rows_i], ln_b[j] - PELLET_MAX_ABSORBANCE)[:, None, None, :]  # darker reads as the cap
+        d = (np.abs(obs - pred) * w).max(axis=3)
+        return d.reshape(d.shape[0], -1).min(axis=1)
 
     idx = np.arange(n)
     best = dev_at(idx, idx)
@@ -1108,7 +1119,7 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     # only rows where a settled solid can reach are judged (speed); above them is liquid
     low = rows >= bt - int(round(PELLET_MAX_HEIGHT_FRACTION * width))
     dev = np.zeros(rows.size)
-    dev[low] = _opacity_dev(np.log(np.maximum(i4[low], 1e-4)), ln_b[low], a_ref[low],
+    dev[low] = _opacity_dev(np.log(np.maximum(i4[low], 1e-4)), ln_b[low], (t_c, s_c),
                             k_lo[low], k_hi[low], shift[low])
     fin = np.isfinite(dev)
     dev = np.where(fin, dev, 0.0)
@@ -1150,7 +1161,7 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
             s_read = i4[is_solid].min(axis=0) if darker else i4[is_solid].max(axis=0)
         ln_s = np.log(np.maximum(s_read, 1e-4))
         dev_s = np.full(rows.size, np.inf)
-        dev_s[low] = _opacity_dev(np.broadcast_to(ln_s, (int(low.sum()), 4)), ln_b[low], a_ref[low],
+        dev_s[low] = _opacity_dev(np.broadcast_to(ln_s, (int(low.sum()), 4)), ln_b[low], (t_c, s_c),
                                   k_lo[low], k_hi[low], shift[low])
         unknown |= ~is_solid & (dev_s < PELLET_MIN_OPACITY)
     unknown &= ~(textured & in_bottom)          # band texture seen: liquid, the walk ends there
