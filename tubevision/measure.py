@@ -956,8 +956,8 @@ def _opacity_dev(ln_i, ln_b, model, k_lo, k_hi, shift) -> np.ndarray:
     ``ln_i`` (n, C) log of the light through the tube, ``ln_b`` (n, C) log of the backdrop
     beside it, ``model`` = (T, S) per channel, the liquid's full-chord transmittance and veil
     (I = T·B + S). Over a chord shorter by k (in [k_lo, k_hi]) a liquid row reads
-    I = B·T^k + S·g with g between k (thin veil, growing with the path) and 1 (saturated veil):
-    Beer–Lambert for T, the two limits of a scattering layer for S. Returned: the smallest max-channel
+    I = B·T^k + S·g with g anywhere between k (thin veil, growing with the path) and 1
+    (saturated veil): Beer–Lambert for T, the two limits of a scattering layer for S. Returned: the smallest max-channel
     |difference| (channels weighted by :data:`PELLET_CHANNEL_WEIGHTS`) over k (a grid of
     :data:`PELLET_K_STEPS`) and over the beside readings up to ``shift`` rows away (per
     row): the view through the tube and the strip beside it may be out of register by a
@@ -977,15 +977,13 @@ def _opacity_dev(ln_i, ln_b, model, k_lo, k_hi, shift) -> np.ndarray:
         # predicted light through the liquid over the chord ratio k, given the backdrop
         # reading of row j: I = B·T^k + S·g, the veil g between k (thin) and 1 (saturated)
         k = kk[rows_i]                                                     # (m, K)
-        tk = np.exp(k[:, :, None] * ln_t[None, None, :])                    # (m, K, C)
-        g = np.stack([k, np.sqrt(k), np.ones_like(k)], axis=2)              # (m, K, G)
-        b_j = np.exp(ln_b[j])
-        i_pred = b_j[:, None, None, :] * tk[:, :, None, :] + s_c[None, None, None, :] * g[:, :, :, None]
-        floor = (ln_b[j] - PELLET_MAX_ABSORBANCE)[:, None, None, :]
-        pred = np.maximum(np.log(np.maximum(i_pred, 1e-6)), floor)
-        obs = np.maximum(ln_i[rows_i], ln_b[j] - PELLET_MAX_ABSORBANCE)[:, None, None, :]  # darker reads as the cap
-        d = (np.abs(obs - pred) * w).max(axis=3)
-        return d.reshape(d.shape[0], -1).min(axis=1)
+        direct = np.exp(ln_b[j])[:, None, :] * np.exp(k[:, :, None] * ln_t[None, None, :])   # (m, K, C)
+        floor = (ln_b[j] - PELLET_MAX_ABSORBANCE)[:, None, :]
+        lo = np.maximum(np.log(np.maximum(direct + s_c * k[:, :, None], 1e-6)), floor)       # thin veil
+        hi = np.maximum(np.log(np.maximum(direct + s_c[None, None, :], 1e-6)), floor)       # saturated
+        obs = np.maximum(ln_i[rows_i], ln_b[j] - PELLET_MAX_ABSORBANCE)[:, None, :]  # darker reads as the cap
+        d = np.maximum(np.maximum(lo - obs, obs - hi), 0.0)                # outside [thin, saturated]
+        return (d * w).max(axis=2).min(axis=1)
 
     idx = np.arange(n)
     best = dev_at(idx, idx)
