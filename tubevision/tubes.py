@@ -17,6 +17,8 @@ from .errors import TubevisionInputError
 __all__ = [
     "TubeRegion",
     "TubeFinding",
+    "TubeMasks",
+    "tube_masks",
     "bbox_to_slices",
     "parse_layout",
     "tubes_from_layout",
@@ -45,7 +47,9 @@ class TubeRegion:
     axis. ``source`` is ``"found"`` or ``"layout"``. ``axis_angle_deg`` is the
     lean of the axis from rim to bottom, degrees from the image's vertical,
     positive when the bottom lies to the right of the rim (camera roll,
-    perspective); 0 for layout boxes.
+    perspective); 0 for layout boxes. ``outer_width`` is the glass's outer width (px)
+    and ``axis_row`` the row at which the axis passes ``axis_col``; 0 means unknown (then
+    the box's width and middle row stand in), as for layout boxes and older callers.
     """
 
     index: int
@@ -60,6 +64,8 @@ class TubeRegion:
     inner_bottom: int
     source: str = "found"
     axis_angle_deg: float = 0.0
+    outer_width: float = 0.0
+    axis_row: float = 0.0
 
     @property
     def id(self) -> str:
@@ -175,6 +181,75 @@ def _geometry_in_box(pixels: np.ndarray, bbox: BBox, index: int, row: int, sourc
     return TubeRegion(index=index, row=row, bbox=bbox, axis_col=axis, inner_col0=c0, inner_col1=c1,
                       liquid_top=y0, liquid_bottom=bottom_top, bottom_top=bottom_top,
                       inner_bottom=inner_bottom, source=source)
+
+
+GLASS_EDGE_FRACTION = 0.15
+"""Width of the glass-edge margin inside the outline, as a fraction of the outer width:
+the wall itself (≈ 0.07 widths, common lab glassware) and, beside it, the band where
+refraction at the curved wall shows a squeezed, distorted view (from memory)."""
+
+SPECULAR_RATIO = 1.35
+"""A pixel inside the tube (off the glass-edge margin) brighter than this × its row's
+median linear luminance inside the outline is a specular highlight (the same rule as :data:`tubevision.measure.HIGHLIGHT_RATIO`:
+glass reflections are several times brighter than the liquid)."""
+
+SPECULAR_CLIP_SRGB8 = 250
+"""Any channel at or above this code (of 255) counts as a highlight (near clipping)."""
+
+
+@dataclass(frozen=True)
+class TubeMasks:
+    """Pixel masks of one tube over its box (arrays of the box's shape, ``[row, col]``).
+
+    ``outline``: inside the glass outline (rim to round bottom); ``glass_edge``: the
+    margin of :data:`GLASS_EDGE_FRACTION` along the outline, where the wall and refraction
+    distort the view; ``specular``: highlights inside the outline
+    (:data:`SPECULAR_RATIO` off the margin, :data:`SPECULAR_CLIP_SRGB8` anywhere).
+    """
+
+    bbox: BBox
+    outline: np.ndarray
+    glass_edge: np.ndarray
+    specular: np.ndarray
+
+
+def tube_masks(pixels: np.ndarray, region: TubeRegion) -> TubeMasks:
+    """Outline, glass-edge margin and specular highlights of ``region`` in ``pixels``
+    (the upright sRGB-encoded photo the region was found in).
+
+    The outline is the tube's capsule: straight walls about the axis (leaning by
+    ``axis_angle_deg``) from the rim down to the round bottom's centre (``bottom_top``),
+    then a hemisphere of half the outer width (geometry of a round-bottom tube).
+    """
+    x0, y0, x1, y1 = region.bbox
+    w = region.outer_width or float(x1 - x0)
+    y_ref = region.axis_row or (y0 + y1 - 1) / 2.0
+    t = float(np.tan(np.radians(region.axis_angle_deg)))
+    yy, xx = np.mgrid[y0:y1, x0:x1].astype(np.float32)
+    cos_a = 1.0 / np.sqrt(1.0 + t * t)
+    d = (xx - (region.axis_col + t * (yy - y_ref))) * cos_a     # distance from the axis
+    r = 0.5 * w
+    below = np.maximum(yy - region.bottom_top, 0.0)
+    rho = np.sqrt(d * d + below * below)                          # distance from the axis / centre
+    outline = rho <= r
+    glass_edge = outline & (rho > r - GLASS_EDGE_FRACTION * w)
+    from .image import to_linear
+
+    rgb = pixels[y0:y1, x0:x1]
+    top = float(np.iinfo(rgb.dtype).max)
+    lum = to_linear(rgb).mean(axis=2)          # linear light: a reflection adds to it
+    lum_in = np.where(outline, lum, np.nan)
+    with np.errstate(invalid="ignore"):
+        import warnings
+
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)   # rows outside the outline: all-NaN
+            med = np.nanmedian(lum_in, axis=1, keepdims=True)
+    clip = (rgb.astype(np.float32) / top * 255.0 >= SPECULAR_CLIP_SRGB8).any(axis=2)
+    # in the glass-edge margin only near-clipped pixels count: a strongly absorbing liquid
+    # is lighter there anyway (shorter chord), which is no highlight
+    specular = outline & (clip | (~glass_edge & (lum > SPECULAR_RATIO * np.nan_to_num(med, nan=np.inf))))
+    return TubeMasks(bbox=region.bbox, outline=outline, glass_edge=glass_edge, specular=specular)
 
 
 def tubes_from_layout(pixels: np.ndarray, boxes: list[BBox]) -> TubeFinding:
@@ -1291,7 +1366,7 @@ def _refine_full(pixels: np.ndarray, cand: _Candidate, A: np.ndarray, index_hint
     return dict(bbox=(x0, y0, x1, y1), axis_col=float(axis_mid[0]), w_full=w_full,
                 liquid_top=None if lt_pt is None else int(round(lt_pt[1])),
                 centre_row=float(centre[1]), inner_bottom=float(at(v_inner_bottom)[1]),
-                angle=angle)
+                angle=angle, axis_row=float(axis_mid[1]))
 
 
 def find_tubes(pixels: np.ndarray, *, expected: int | None = None, exclude_quad=None) -> TubeFinding:
@@ -1373,7 +1448,8 @@ def find_tubes(pixels: np.ndarray, *, expected: int | None = None, exclude_quad=
         regions.append(TubeRegion(index=k, row=r, bbox=(x0, y0, x1, y1), axis_col=g["axis_col"],
                                   inner_col0=max(x0, c0), inner_col1=min(x1, c1), liquid_top=lt,
                                   liquid_bottom=centre, bottom_top=centre, inner_bottom=ib,
-                                  source="found", axis_angle_deg=g["angle"]))
+                                  source="found", axis_angle_deg=g["angle"], outer_width=float(wf),
+                                  axis_row=g["axis_row"]))
     warnings = []
     if not regions:
         warnings.append("no tubes found in the photo; check framing and lighting, or give --layout")

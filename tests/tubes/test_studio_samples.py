@@ -113,3 +113,32 @@ def test_vertical_bands_tubes_found():
     """[synthetic] The tubes in front of vertical bands are all found."""
     _, truth, finding = _load("vbands-warm")
     _pairs(finding, truth)
+
+
+def test_masks_outline_edge_and_specular_streaks():
+    """[synthetic] The masks of each found tube: the outline fills its box as a round-bottom
+    capsule does, the glass-edge margin lies along the outline and leaves the central third
+    alone, the studio's strong specular streak (tubevision.studio.scene.SPECULAR_STREAKS:
+    at d/R = -0.62) is marked in most rows above the bottom, and the central third, where
+    colour is measured, is not taken for a highlight."""
+    from tubevision.studio.scene import SPECULAR_STREAKS
+    from tubevision.tubes import tube_masks
+
+    photo, truth, finding = _load("mixed-plain-d65")
+    strong = max(SPECULAR_STREAKS, key=lambda s: s[2])[0]
+    for t, r, _ in _pairs(finding, truth):
+        m = tube_masks(photo.pixels, r)
+        x0, y0, x1, y1 = r.bbox
+        assert m.outline.shape == (y1 - y0, x1 - x0)
+        fill = m.outline.mean()
+        assert 0.85 <= fill <= 0.99, fill                     # capsule in its box (lean allowed)
+        assert not (m.glass_edge & ~m.outline).any()
+        mid = (r.liquid_bottom + y0) // 2 - y0
+        assert not m.glass_edge[mid, r.inner_col0 - x0:r.inner_col1 - x0].any()
+        assert m.glass_edge[mid].any()
+        rad = 0.5 * r.outer_width
+        u = (np.arange(x0, x1) - r.axis_col) / rad
+        body = m.specular[: r.bottom_top - y0]
+        at_streak = body[:, np.abs(u - strong) <= 0.2].any(axis=1)
+        assert at_streak.mean() >= 0.5, (t["index"], at_streak.mean())
+        assert body[:, np.abs(u) < 1 / 3].mean() < 0.02, t["index"]
