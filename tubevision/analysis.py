@@ -187,8 +187,18 @@ def analyze_photo(photo: Photo, options: AnalysisOptions = AnalysisOptions(), *,
     warnings.extend(finding.warnings)
 
     # measure, classify
+    def scale_at(region):
+        # the card's homography gives the scale at each tube's own bottom, not just at the
+        # card (perspective changes it across the frame; see measure.mm_per_px_at)
+        if status != "card" or not hasattr(measure, "mm_per_px_at"):
+            return mm_per_px
+        try:
+            return measure.mm_per_px_at(detection.homography_mm_to_px, (region.axis_col, region.inner_bottom))
+        except TubevisionInputError:
+            return mm_per_px
+
     measurements = tuple(
-        measure.measure_tube(photo.pixels, region, correction=correction, mm_per_px=mm_per_px,
+        measure.measure_tube(photo.pixels, region, correction=correction, mm_per_px=scale_at(region),
                              turbidity_curve=turbidity_curve)
         for region in finding.regions
     )
@@ -267,10 +277,10 @@ def fit_standards_from_photo(analysis: PhotoAnalysis, values: dict[int, float], 
         A position with no tube, a standard read as empty, or too few standards
         (:func:`tubevision.turbidity.fit_turbidity_curve`).
     """
-    from .turbidity import fit_turbidity_curve
+    from .turbidity import curve_from_measurements
 
     n = len(analysis.finding.regions)
-    rows = []
+    rows, ms = [], []
     for k in sorted(values):
         if k >= n:
             raise TubevisionInputError(f"--values: position {k + 1}, but {n} tubes were found")
@@ -278,7 +288,8 @@ def fit_standards_from_photo(analysis: PhotoAnalysis, values: dict[int, float], 
         if m.liquid is None:
             raise TubevisionInputError(f"--values: tube T{k + 1} reads as empty; no turbidity to calibrate")
         rows.append((f"T{k + 1}", float(m.liquid.turbidity), float(values[k])))
+        ms.append(m)
     source = (f"{len(rows)} standards in {analysis.photo.meta.file} "
               f"(sha256 {analysis.photo.meta.sha256[:12]}…), calibration {analysis.calibration_status}")
-    curve = fit_turbidity_curve([r[1] for r in rows], [r[2] for r in rows], unit=unit, source=source)
+    curve = curve_from_measurements(ms, [r[2] for r in rows], unit=unit, source=source)
     return curve, rows

@@ -136,7 +136,7 @@ def _tube(analysis, i: int) -> dict[str, Any]:
         liquid["turbidity_sd"] = _num(getattr(liq, "turbidity_sd", None), 4)
         liquid["n_pixels"] = int(getattr(liq, "n_pixels", 0))
         liquid["clipped_fraction"] = _num(getattr(liq, "clipped_fraction", None), 4)
-        for extra in ("turbidity_standard", "turbidity_standard_unit"):
+        for extra in ("turbidity_standard", "turbidity_standard_sd", "turbidity_standard_unit"):
             if getattr(liq, extra, None) is not None:
                 liquid[extra] = getattr(liq, extra)
     p = m.pellet
