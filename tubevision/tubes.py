@@ -8,7 +8,7 @@ photo, x0/y0 inclusive, x1/y1 exclusive. Inside the code arrays are indexed
 from __future__ import annotations
 
 import json
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -607,9 +607,19 @@ class _Candidate:
     end: float
     w: float
     strength: float
-    verified: bool = True
-    arc: float = 0.0
+    ys: tuple = ()
+    xs: tuple = ()
 
+
+def _sub_track(c: _Candidate, y0: float, y1: float) -> _Candidate | None:
+    """The part of a track between rows y0 and y1, its axis fitted to its own peaks."""
+    ys, xs = np.asarray(c.ys, float), np.asarray(c.xs, float)
+    sel = (ys >= y0) & (ys < y1)
+    if sel.sum() < 3:
+        return None
+    b, a = np.polyfit(ys[sel], xs[sel], 1)
+    return replace(c, a=float(a), b=float(b), top=float(max(c.top, y0 - 0.5 * STRIP_PX)),
+                   end=float(min(c.end, y1)), ys=tuple(ys[sel]), xs=tuple(xs[sel]))
 
 
 
@@ -672,7 +682,8 @@ def _tracks_at_width(Pn: np.ndarray, En: np.ndarray, gy: np.ndarray, gxs: np.nda
             continue
         # the track's ends are only where :func:`_verify` starts looking for rim and bottom
         out.append(_Candidate(a=float(a), b=float(b), top=float(t.s[0] * STRIP_PX),
-                              end=float((t.s[-1] + 1) * STRIP_PX), w=float(w), strength=float(np.sum(t.v))))
+                              end=float((t.s[-1] + 1) * STRIP_PX), w=float(w), strength=float(np.sum(t.v)),
+                              ys=tuple(ys), xs=tuple(float(x) for x in t.c)))
     return out
 
 
@@ -739,6 +750,14 @@ ARC_SCORE_MIN = 0.3
 radially oriented edge strength relative to the walls' own strength. A visible bottom
 scores 0.5-1; vertical edges (bands, posts) score ≲ 0.1 (orientation term cos⁴ 45° = 0.25 at
 the arc's ends, 0 at its middle); a horizontal edge touches only the middle of the arc."""
+
+TRACK_SPLIT_WIDTHS = 11.0
+"""A track longer than this many tube widths (longer than any test tube, 5-10 widths) is
+split at its longest gap when that gap is at least :data:`TRACK_SPLIT_GAP_WIDTHS`."""
+
+TRACK_SPLIT_GAP_WIDTHS = 0.8
+"""Shortest gap (tube widths) in the peaks of a long track taken for the space between two
+rack rows (a rack's base plate and the free space above the next rims are ≳ 1 width)."""
 
 LENGTH_WIDTHS = (3.0, 15.0)
 """Rim to bottom, in tube widths: test tubes are 5-10 widths long (12×75 to 16×150 mm,
@@ -882,6 +901,19 @@ def _verify(c, ev: _Evidence, out: list, pending: list) -> None:
     (two rack rows) is split: the rest goes to ``pending``."""
     h, wd = ev.gx.shape
     w = float(c.w)
+    if len(c.ys) > 1 and c.end - c.top > TRACK_SPLIT_WIDTHS * w:
+        # longer than a tube: tubes of two rack rows in line, linked across the gap
+        # between the rows. Split at the track's longest gap, each part with its own axis
+        ys = np.asarray(c.ys)
+        k = int(np.argmax(np.diff(ys)))
+        if ys[k + 1] - ys[k] >= TRACK_SPLIT_GAP_WIDTHS * w:
+            top_part = _sub_track(c, c.top, 0.5 * (ys[k] + ys[k + 1]))
+            rest = _sub_track(c, 0.5 * (ys[k] + ys[k + 1]), c.end)
+            if rest is not None:
+                pending.append(rest)
+            if top_part is None:
+                return _reject(c, -3)
+            c = top_part
     ya, yb = int(max(0, np.floor(c.top - w))), int(min(h, np.ceil(c.end + w)))
     rows = np.arange(ya, yb)
     if rows.size < LENGTH_WIDTHS[0] * w:
@@ -1029,7 +1061,9 @@ def _verify(c, ev: _Evidence, out: list, pending: list) -> None:
                      score=float(coverage * arc_v * length * w2),
                      arc=arc_v, coverage=coverage))
     if c.end - (yc + r) > LENGTH_WIDTHS[0] * w:
-        pending.append(_Candidate(a=c.a, b=c.b, top=yc + 1.6 * w, end=c.end, w=c.w, strength=c.strength))
+        rest = _sub_track(c, yc + 1.6 * w, c.end) if c.ys else None
+        if rest is not None:
+            pending.append(rest)
 
 
 def _verify_all(cands, ev: _Evidence, known: list[_Tube] | None = None) -> list[_Tube]:
