@@ -5,14 +5,16 @@ offset ``BENCH_SEED_OFFSET``) at the illuminant × camera combinations that
 training never saw (:func:`tubevision.classify.train.held_out_combinations`).
 Each photo goes card → tubes (the truth geometry) → measure → classify, as the
 training table was made, so the figures are the classifier's on real
-measurements, without tube-finding errors.
+measurements, without tube-finding errors. ``--geometry no-meniscus`` /
+``box-top`` give the measure stage the faulty liquid tops of a missed meniscus
+or of ``--layout`` boxes instead (:data:`tubevision.classify.train.GEOMETRIES`).
 
 Prints the state confusion matrix with per-class precision and recall, the
 macro-F1 (target ≥ 0.97), the liquid colour-word accuracy (target ≥ 0.95),
 the pellet colour-word accuracy, how often a wrong call carried a warning,
 the rule fallback's figures on the same tubes, and a breakdown by backdrop.
 
-Run:  python bench/bench_classify.py [--quick] [--photos N] [--model FILE] [--jobs 2]
+Run:  python bench/bench_classify.py [--quick] [--photos N] [--model FILE] [--jobs 2] [--geometry G]
 """
 
 from __future__ import annotations
@@ -31,7 +33,7 @@ COLOUR_TARGET = 0.95
 
 def _photo_job(args):
     """Render, measure and classify one bench photo; plain dicts per tube."""
-    k, seed, model_path = args
+    k, seed, model_path, geometry = args
     from tubevision.classify import load_model, rule_state
     from tubevision.classify.train import measure_rendered, studio_scene
     from tubevision.studio import render_scene
@@ -39,7 +41,7 @@ def _photo_job(args):
     model = load_model(model_path) if model_path else None
     spec, rseed = studio_scene(k, "bench", seed)
     rendered = render_scene(spec, seed=rseed)
-    got = measure_rendered(rendered, model=model)
+    got = measure_rendered(rendered, model=model, geometry=geometry)
     out = []
     for t, m, c in zip(rendered.truth["tubes"], got.measurements, got.calls):
         out.append({
@@ -62,11 +64,14 @@ def main(argv=None) -> int:
     ap.add_argument("--seed", type=int, default=TRAIN_SEED)
     ap.add_argument("--model", default=None, help="model JSON (default: the shipped one)")
     ap.add_argument("--jobs", type=int, default=2)
+    ap.add_argument("--geometry", default="truth", choices=("truth", "no-meniscus", "box-top"),
+                    help="liquid top given to measure: the truth (default), none (a missed meniscus), "
+                         "or the box top (what --layout boxes give)")
     args = ap.parse_args(argv)
     n = args.photos or (20 if args.quick else 120)
     seed = args.seed + BENCH_SEED_OFFSET
     t0 = time.perf_counter()
-    work = [(k, seed, args.model) for k in range(n)]
+    work = [(k, seed, args.model, args.geometry) for k in range(n)]
     if args.jobs > 1:
         import concurrent.futures as cf
         import multiprocessing as mp
@@ -78,7 +83,8 @@ def main(argv=None) -> int:
     rows = [r for p in parts for r in p]
     dt = time.perf_counter() - t0
 
-    print(f"bench_classify: {n} photos, {len(rows)} tubes, held-out combinations "
+    print(f"bench_classify: {n} photos, {len(rows)} tubes, liquid top from geometry '{args.geometry}', "
+          "held-out combinations "
           + ", ".join(f"{i}/{s}" for i, s in held_out_combinations()))
     print(f"  {dt:.1f} s ({dt / max(n, 1):.2f} s per photo incl. render, {args.jobs} jobs); "
           f"method {collections.Counter(r['method'] for r in rows).most_common()}; "

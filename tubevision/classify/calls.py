@@ -15,7 +15,12 @@ lowered where the call should not be trusted and with a warning each time:
   in the model file): multiplied by ``OUT_OF_RANGE_FACTOR`` and capped at
   ``OUT_OF_RANGE_MAX_CONFIDENCE``;
 * two states close (top-two margin below ``CLOSE_MARGIN``): the warning names both;
-* a missing feature (NaN): filled with the training median, capped likewise.
+* a missing feature (NaN): filled with the training median, capped likewise;
+* the forest and the measure stage disagree about liquid: no liquid column
+  measured but a state with liquid called (kept: the forest was trained on
+  missed menisci too), or a column measured but ``empty`` called (the most
+  probable state with liquid is taken instead, since the contract's empty
+  means no liquid): capped likewise.
 
 The colour words' own shares (:func:`~tubevision.classify.naming.colour_name_candidates`)
 are kept in ``liquid_colour_candidates`` / ``pellet_colour_candidates``; a word
@@ -314,8 +319,20 @@ def classify_tube(measurement, *, model: StateModel | None = None) -> TubeCall:
             warnings.append(f"no liquid column measured but the model says {state}: no liquid colour word")
             confidence = min(confidence, OUT_OF_RANGE_MAX_CONFIDENCE)
         elif liq is not None and state == "empty":
-            warnings.append("the model said empty but a liquid column was measured")
-            confidence = min(confidence, OUT_OF_RANGE_MAX_CONFIDENCE)
+            # The contract's empty means no liquid; the measure stage read a liquid column,
+            # so the most probable state with liquid is called (in training, empty tubes
+            # never had a column: this happens only off the training distribution, e.g.
+            # layout boxes whose liquid top is the box top).
+            nonempty = [i for i in order if model.classes[i] != "empty"]
+            if nonempty:
+                alt = model.classes[nonempty[0]]
+                warnings.append(f"the model said empty ({p[order[0]]:.2f}) but a liquid column was measured: "
+                                f"called {alt} ({p[nonempty[0]]:.2f})")
+                state = alt
+                confidence = min(float(p[nonempty[0]]), OUT_OF_RANGE_MAX_CONFIDENCE)
+            else:
+                warnings.append("the model said empty but a liquid column was measured")
+                confidence = min(confidence, OUT_OF_RANGE_MAX_CONFIDENCE)
 
     liquid_word, liquid_cands = None, ()
     if liq is not None and state != "empty":
