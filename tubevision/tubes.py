@@ -293,28 +293,37 @@ def tubes_from_layout(pixels: np.ndarray, boxes: list[BBox]) -> TubeFinding:
 #    over horizontal strips; in each strip a tube of width w is where both
 #    x − w/2 and x + w/2 carry a wall and its central third carries none:
 #        S_w(x) = min(P(x − w/2), P(x + w/2)) − k·max P over |x' − x| < w/6.
-#    The width w is the one whose strip-wise best responses sum highest.
+#    Likely widths are the modes of the strip-wise best responses summed
+#    over trial widths.
 # 3. Tracks. Peaks of S_w in successive strips are linked into tracks that
-#    may lean; a gap in a track (the rack's bar in front) is bridged unless
-#    a round bottom ends the track above it (one tube above the rim of the
-#    next). Each track is confirmed by its round bottom: wall evidence along
-#    the inward arc of a hemisphere, more than along the outward arcs that
-#    a gap between two neighbouring tubes shows.
-# 4. Ends. Rim: first row where both walls show. Round bottom: where the
-#    walls stop (the hemisphere's centre), refined on full-resolution pixels
-#    along the axis, where the outline ends.
+#    may lean; a gap of up to 1.5 widths (the rack's bar in front) is bridged.
+#    A track is only a hypothesis.
+# 4. Verification (see the comment above :data:`VERIFY_WIDTH_RATIO`): the
+#    walls are found again across the profile (this gives the width), must be
+#    thin dark lines, with no third one inside, a free rim above which they
+#    stop, and a round bottom whose outline is radially oriented, curving
+#    inward rather than outward (a gap between two tubes). The rim and the
+#    bottom's centre come from here; a track longer than a tube is split at
+#    its longest gap (two rack rows). The likely width whose verified tubes
+#    are best supported wins, and widths ±8 % round it are added
+#    (perspective); overlaps keep the better supported, and a tube whose width
+#    is off its rack row's median is dropped. The bottom is refined on
+#    full-resolution pixels along the axis, where the outline ends.
 # 5. Liquid top, on full-resolution pixels sampled along each tube's axis:
 #    the ratio of the central third to the backdrop just beside the glass in
 #    the same rows (which removes horizontal backdrop bands: a cylinder with
 #    a vertical axis refracts only across its width, see
-#    :mod:`tubevision.backdrop`). The meniscus is the top-most dark line
-#    (a dip of the ratio) or colour step in that ratio below the rim; none
+#    :mod:`tubevision.backdrop`; the samples beside are shifted along the
+#    axis onto the bands seen through the tube, for perspective). The meniscus
+#    is the top-most dark line (a dip of the ratio) or colour step in that
+#    ratio below the rim, over light rows, then over dark-band rows on their
+#    own, then at a lower threshold (the Fresnel step of clear water); none
 #    means an empty tube.
 
 FIND_MAX_SIDE_PX = 1024
 """Longer side (px) of the reduced copy the finder searches. A 24-tube rack
-filling a 12-MP photo still gives tubes ≳ 25 px wide there; chosen so that
-finding stays well within 150 ms per 12-MP photo."""
+filling a 12-MP photo still gives tubes ≳ 25 px wide there (at 768 px the walls
+of such tubes are too thin to verify, studio benchmark)."""
 
 ROLL_MAX_DEG = 15.0
 """Largest camera roll (degrees) the finder looks for; the task asks for 10°,
@@ -370,8 +379,9 @@ MIN_TRACK_DENSITY = 0.45
 """Fraction of a track's strips that must carry a peak (random alignments are sparse)."""
 
 MAX_GAP_WIDTHS = 1.5
-"""Longest gap (in tube widths) a track may bridge (the rack's bar in front of the tubes),
-unless a round bottom ends the track above the gap."""
+"""Longest gap (in tube widths) a track may bridge: the rack's bar in front of the tubes
+(12 mm on a 16 mm tube in common racks, from memory), but not the space between two rack
+rows (a base plate and free space, ≳ 1.5 widths)."""
 
 WALL_FRACTION = 0.07
 """Glass wall thickness as a fraction of the outer width (a 16 mm tube has ≈ 1.1 mm
@@ -598,8 +608,9 @@ def _link(peaks: list, w: float) -> list:
 
 @dataclass(frozen=True)
 class _Candidate:
-    """A tube on the rotated reduced copy: axis x = a + b·y from row ``top`` to ``end``
-    (where the walls stop), width ``w``, and a strength."""
+    """A hypothesis on the rotated reduced copy: axis x = a + b·y from row ``top`` to
+    ``end`` (the track's ends), trial width ``w``, strength, and the track's peaks
+    (rows ``ys``, columns ``xs``)."""
 
     a: float
     b: float
