@@ -53,7 +53,7 @@ class _Tree:
     right: np.ndarray  # int32 (n_nodes,)
     feature: np.ndarray  # int32 (n_nodes,), -2 at leaves
     threshold: np.ndarray  # float64 (n_nodes,)
-    value: np.ndarray  # float64 (n_nodes, n_classes), class fractions, rows sum to 1
+    value: np.ndarray  # float64 (n_nodes, n_classes), class fractions at leaves (rows sum to 1)
 
 
 @dataclass(frozen=True)
@@ -114,6 +114,14 @@ def forest_predict_proba(model: StateModel, X: np.ndarray) -> np.ndarray:  # noq
     return total / len(model.trees)
 
 
+def _leaf_values(t: _Tree) -> list:
+    """Leaf class fractions to 6 decimals; inner nodes' rows written as zeros (never
+    read: :func:`forest_predict_proba` stops at leaves), which halves the file."""
+    v = np.round(t.value, 6)
+    v[t.left >= 0] = 0.0
+    return [[int(x) if x == 0 else float(x) for x in row] for row in v]
+
+
 def model_to_dict(model: StateModel) -> dict[str, Any]:
     """The JSON-ready form of a model (inverse of :func:`model_from_dict`)."""
     return {
@@ -128,7 +136,7 @@ def model_to_dict(model: StateModel) -> dict[str, Any]:
         "trees": [
             {"children_left": t.left.tolist(), "children_right": t.right.tolist(),
              "feature": t.feature.tolist(), "threshold": [float(v) for v in t.threshold],
-             "value": np.round(t.value, 6).tolist()}
+             "value": _leaf_values(t)}
             for t in model.trees
         ],
     }
