@@ -347,6 +347,11 @@ the frame would not show its rack; the task's closest case is one tube)."""
 WIDTH_STEP_RATIO = 1.04
 """Ratio between successive trial widths (4 % steps, finer than the ±6 % wall tolerance)."""
 
+WIDTH_REVISIT_FRACTION = 0.1
+"""A likely width whose verified tubes measure a median width more than this fraction
+away is searched again at that median (the pair score's modes favour the narrower pairs
+a tube's interior makes; the verified walls know better)."""
+
 WALL_TOLERANCE_FRACTION = 0.06
 """A wall may sit this fraction of the width off its nominal place (perspective
 makes near tubes a few per cent wider than far ones; refraction shifts the lines)."""
@@ -658,11 +663,23 @@ def _candidates(rot: np.ndarray, valid: np.ndarray) -> list[_Candidate]:
     # inside of a tube (specular streaks, the liquid's edges) can mimic a narrower pair,
     # but nothing narrower mimics a whole tube's walls, rim and bottom.
     best_w, best_total, best_tubes = None, 0.0, []
-    for w in _width_modes(ws, sc):
+    trial = list(_width_modes(ws, sc))
+    done: list[float] = []
+    while trial:
+        w = trial.pop(0)
+        if any(abs(w / d - 1.0) < WIDTH_REVISIT_FRACTION for d in done):
+            continue
+        done.append(w)
         tubes = _drop_overlapping_tubes(_verify_all(_tracks_at_width(Pn, En, gy, gxs, gray, w), ev))
         total = sum(t.score for t in tubes)
         if total > best_total:
             best_w, best_total, best_tubes = w, total, tubes
+        if tubes:
+            # the walls measured by verification may say the tubes are wider or narrower
+            # than the trial width that found them: try their median width too
+            med = float(np.median([t.w for t in tubes]))
+            if abs(med / w - 1.0) > WIDTH_REVISIT_FRACTION:
+                trial.insert(0, med)
     if best_w is None:
         return []
     found = list(best_tubes)
@@ -906,7 +923,7 @@ def _reject(c, where: int) -> None:
         _TRACE.append((c, where))
 
 
-def _verify(c, ev: _Evidence, out: list, pending: list) -> None:
+def _verify(c, ev: _Evidence, out: list, pending: list, refit: bool = True) -> None:
     """Test one hypothesis (see the comment above :data:`VERIFY_WIDTH_RATIO`); append a
     :class:`_Tube` to ``out`` when it holds. A track that runs on past a round bottom
     (two rack rows) is split: the rest goes to ``pending``."""
@@ -952,6 +969,25 @@ def _verify(c, ev: _Evidence, out: list, pending: list) -> None:
     if not VERIFY_WIDTH_RATIO[0] <= w2 / w <= VERIFY_WIDTH_RATIO[1] or w2 < MIN_TUBE_WIDTH_PX:
         return _reject(c, 31)
     shift = 0.5 * (ul + ur)
+    if refit:
+        # the track's lean comes from pair peaks; the walls themselves, measured in the
+        # upper and lower halves of the body, give it better: refit and test again
+        rs = np.nonzero(sel)[0]
+        halves = rs[: rs.size // 2], rs[rs.size // 2:]
+        cents, ymids = [], []
+        for hr in halves:
+            p_h = np.percentile(AX[hr], 60, axis=0)
+            pl = _outer_peak(p_h, us, ul - 0.1 * w, ul + 0.1 * w, -1)
+            pr = _outer_peak(p_h, us, ur - 0.1 * w, ur + 0.1 * w, +1)
+            if pl is None or pr is None:
+                break
+            cents.append(0.5 * (pl + pr))
+            ymids.append(float(np.mean(rows[hr])))
+        if len(cents) == 2 and ymids[1] > ymids[0]:
+            db = (cents[1] - cents[0]) / (ymids[1] - ymids[0])
+            if abs(db) * (ymids[1] - ymids[0]) >= 1.0:
+                a_new = c.a + cents[0] - db * ymids[0]
+                return _verify(replace(c, a=float(a_new), b=float(c.b + db)), ev, out, pending, refit=False)
     il, ir = int(np.argmin(np.abs(us - ul))), int(np.argmin(np.abs(us - ur)))
     el = AX[:, max(0, il - 1):il + 2].max(axis=1)
     er = AX[:, max(0, ir - 1):ir + 2].max(axis=1)

@@ -24,8 +24,9 @@ from tubevision.tubes import find_tubes
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_images"
 IOU_MIN = 0.85
 LIQUID_TOP_MEAN_MM = 1.0      # issue 5 target
-LIQUID_TOP_MAX_MM = 2.0       # per tube: a meniscus hidden in a dark band of the printed backdrop
-                              # is placed in the band's middle, ≤ half its 4 mm width away
+LIQUID_TOP_MAX_MM = 3.0       # per tube: a meniscus hidden in a dark band of the printed backdrop
+                              # is placed inside the band and its edge margins (4 mm + 2 × 0.05
+                              # widths), at most about half of that, 2.8 mm, away
 
 
 def _iou(a, b) -> float:
@@ -60,7 +61,7 @@ def _pairs(finding, truth):
 def test_sample_tubes_found_once_with_tight_boxes_and_liquid_tops(stem):
     """[synthetic] Plain and banded backdrops, the demo render (banded, card beside), two
     rack rows, a photo stored turned with EXIF orientation 6: every tube once, boxes
-    IoU ≥ 0.85 in upright pixels, liquid tops within 1 mm on average (≤ 2 mm each) where
+    IoU ≥ 0.85 in upright pixels, liquid tops within 1 mm on average (≤ 3 mm each) where
     the finder gives one, none for the empty tube."""
     photo, truth, finding = _load(stem)
     assert (photo.pixels.shape[1], photo.pixels.shape[0]) == tuple(truth["size"])   # upright
