@@ -649,10 +649,6 @@ def _candidates(rot: np.ndarray, valid: np.ndarray) -> list[_Candidate]:
     P = E[: ns * STRIP_PX].reshape(ns, STRIP_PX, wd).mean(axis=1)
     e0 = SATURATION_NOISE_FACTOR * float(np.median(P)) + 1.0
     Pn = P / (P + e0)
-    En = E / (E + e0)
-    gray = rot.mean(axis=2)
-    gy = _vertical_edges(gray)
-    gxs = _signed_gx(gray)
     w_max = max(MIN_TUBE_WIDTH_PX + 1.0, MAX_TUBE_WIDTH_FRACTION * wd)
     ws, sc = _width_scores(Pn, w_max)
     ev = _Evidence(rot, valid)
@@ -670,7 +666,7 @@ def _candidates(rot: np.ndarray, valid: np.ndarray) -> list[_Candidate]:
         if any(abs(w / d - 1.0) < WIDTH_REVISIT_FRACTION for d in done):
             continue
         done.append(w)
-        tubes = _drop_overlapping_tubes(_verify_all(_tracks_at_width(Pn, En, gy, gxs, gray, w), ev))
+        tubes = _drop_overlapping_tubes(_verify_all(_tracks_at_width(Pn, w), ev))
         total = sum(t.score for t in tubes)
         if total > best_total:
             best_w, best_total, best_tubes = w, total, tubes
@@ -686,14 +682,12 @@ def _candidates(rot: np.ndarray, valid: np.ndarray) -> list[_Candidate]:
     for k in range(-WIDTH_SPREAD_STEPS, WIDTH_SPREAD_STEPS + 1):
         if k:
             w = best_w * WIDTH_STEP_RATIO ** (2 * k)
-            found.extend(_verify_all(_tracks_at_width(Pn, En, gy, gxs, gray, w), ev, known=found))
+            found.extend(_verify_all(_tracks_at_width(Pn, w), ev, known=found))
     return _consistent_rows(_drop_overlapping_tubes(found))
 
 
-def _tracks_at_width(Pn: np.ndarray, En: np.ndarray, gy: np.ndarray, gxs: np.ndarray,
-                     gray: np.ndarray, w: float) -> list[_Candidate]:
-    """Peaks at width ``w`` linked into tracks, their ends and round-bottom evidence."""
-    h, wd = En.shape
+def _tracks_at_width(Pn: np.ndarray, w: float) -> list[_Candidate]:
+    """Peaks at width ``w`` linked into tracks: the hypotheses :func:`_verify` tests."""
     S = _pair_score(Pn, w)
     nms = _hmax(S, int(round(0.6 * w)))
     peaks = _strip_peaks(S, nms, w)
@@ -914,13 +908,16 @@ def _arc_scores(ev: _Evidence, a: float, b: float, r: float, ycs: np.ndarray, le
 
 
 POLARITY = False
+"""Require the bottom's outline to have the walls' edge polarity: off, as a bottom standing on
+a darker rack base shows the opposite polarity (studio benchmark)."""
+
 _TRACE: list | None = None
-"""Set to a list to collect (hypothesis, line) of each rejection (diagnostics only)."""
+"""Set to a list to collect (hypothesis, reason) of each rejection (diagnostics only)."""
 
 
-def _reject(c, where: int) -> None:
+def _reject(c, why: str) -> None:
     if _TRACE is not None:
-        _TRACE.append((c, where))
+        _TRACE.append((c, why))
 
 
 def _verify(c, ev: _Evidence, out: list, pending: list, refit: bool = True) -> None:
@@ -940,12 +937,12 @@ def _verify(c, ev: _Evidence, out: list, pending: list, refit: bool = True) -> N
             if rest is not None:
                 pending.append(rest)
             if top_part is None:
-                return _reject(c, -3)
+                return _reject(c, "split part too short")
             c = top_part
     ya, yb = int(max(0, np.floor(c.top - w))), int(min(h, np.ceil(c.end + w)))
     rows = np.arange(ya, yb)
     if rows.size < LENGTH_WIDTHS[0] * w:
-        return _reject(c, 9)
+        return _reject(c, "too short")
     half = int(np.ceil(0.8 * w))
     us = np.arange(-half, half + 1)
     xc = c.a + c.b * rows
@@ -959,15 +956,15 @@ def _verify(c, ev: _Evidence, out: list, pending: list, refit: bool = True) -> N
     light = (beside >= LIGHT_ROW_FRACTION * max(ref, 1e-6)) & ev.valid[rows, np.clip(np.round(xc).astype(int), 0, wd - 1)]
     sel = core & light
     if sel.sum() < 2 * w:
-        return _reject(c, 23)
+        return _reject(c, "too few light rows")
     prof = np.percentile(AX[sel], 60, axis=0)
     ul = _outer_peak(prof, us, -0.75 * w, -0.3 * w, -1)
     ur = _outer_peak(prof, us, 0.3 * w, 0.75 * w, +1)
     if ul is None or ur is None:
-        return _reject(c, 28)
+        return _reject(c, "no walls")
     w2 = ur - ul
     if not VERIFY_WIDTH_RATIO[0] <= w2 / w <= VERIFY_WIDTH_RATIO[1] or w2 < MIN_TUBE_WIDTH_PX:
-        return _reject(c, 31)
+        return _reject(c, "width disagrees")
     shift = 0.5 * (ul + ur)
     if refit:
         # the track's lean comes from pair peaks; the walls themselves, measured in the
@@ -995,7 +992,7 @@ def _verify(c, ev: _Evidence, out: list, pending: list, refit: bool = True) -> N
     level = float(np.median(both[sel]))
     thr = max(0.35 * level, 3.0 * ev.noise)
     if level <= thr:
-        return _reject(c, 40)
+        return _reject(c, "walls too faint")
     on = (el > thr) & (er > thr)
     # glass walls are thin dark lines (refraction at grazing incidence, common practice):
     # darker than both the backdrop outside and the glass inside, at least in the rows of
@@ -1009,7 +1006,7 @@ def _verify(c, ev: _Evidence, out: list, pending: list, refit: bool = True) -> N
         in_v = G[:, cu(u_wall - sgn * 2 * m)]
         valley &= np.minimum(out_v, in_v) - line > WALL_VALLEY_CONTRAST * out_v
     if valley[sel].mean() < WALL_VALLEY_MIN:
-        return _reject(c, 54)
+        return _reject(c, "walls not dark lines")
     # no third wall inside: a dark line inside the glass, nearly as dark as the walls'
     # lines, is another tube's wall (a pair spanning a tube and a gap). Specular streaks
     # inside are bright lines, the meniscus is horizontal.
@@ -1024,7 +1021,7 @@ def _verify(c, ev: _Evidence, out: list, pending: list, refit: bool = True) -> N
     wall_dark = min(float(dark[near_l].max()), float(dark[near_r].max())) if near_l.any() and near_r.any() else 0.0
     inner = np.abs(u_rel) <= INNER_WALL_FREE_FRACTION * w2
     if wall_dark > 0 and float(dark[inner].max()) >= 0.5 * wall_dark:
-        return _reject(c, -1)
+        return _reject(c, "a third wall inside")
     # rim: first row with both walls that starts a run where they mostly stay
     k = max(3, int(round(0.4 * w)))
     on_l = (on | ~light).astype(float)
@@ -1032,7 +1029,7 @@ def _verify(c, ev: _Evidence, out: list, pending: list, refit: bool = True) -> N
     lim = int(np.searchsorted(rows, c.top + w))
     starts = np.nonzero(on[:lim] & (run[:lim] >= 0.8))[0]
     if starts.size == 0:
-        return _reject(c, 62)
+        return _reject(c, "no rim")
     i_rim = int(starts[0])
     rim = float(rows[i_rim])
     near = (rows >= rim - 0.8 * w) & (rows < rim - 0.1 * w)
@@ -1043,10 +1040,10 @@ def _verify(c, ev: _Evidence, out: list, pending: list, refit: bool = True) -> N
         g_side = G[:, side].mean(axis=1)
         backdrop_like &= g_side >= BACKDROP_LIKE_FRACTION * max(float(np.median(g_side[core])), 1e-6)
     if near.sum() >= 3 and backdrop_like[near].mean() < ABOVE_RIM_LIGHT_MIN:
-        return          # the "rim" is the lower edge of something dark in front (a rack bar)
+        return _reject(c, "rim under something dark in front (a rack bar)")
     above = near & light
     if above.sum() >= 3 and on[above].mean() > ABOVE_RIM_MAX:
-        return _reject(c, 76)
+        return _reject(c, "walls run on above the rim")
     a2 = c.a + shift
     r = 0.5 * w2
     # round bottom: the first strong arc (from the rim down) below which the walls stop
@@ -1057,7 +1054,7 @@ def _verify(c, ev: _Evidence, out: list, pending: list, refit: bool = True) -> N
     polarity = float(np.sign(gl)) if (POLARITY and np.sign(gl) == np.sign(gr)) else 0.0
     y_lo, y_hi = rim + LENGTH_WIDTHS[0] * w2 - r, min(h - 1 - r, rim + LENGTH_WIDTHS[1] * w2)
     if y_hi <= y_lo:
-        return _reject(c, 87)
+        return _reject(c, "no room for a bottom")
     ycs = np.arange(np.ceil(y_lo), np.floor(y_hi) + 1)
     # a tube does not run into the left-out area (the card): stop at its edge
     yi = ycs.astype(int) + int(np.ceil(r))
@@ -1065,7 +1062,7 @@ def _verify(c, ev: _Evidence, out: list, pending: list, refit: bool = True) -> N
     if not inside.all():
         ycs = ycs[:int(np.argmin(inside))]
     if ycs.size == 0:
-        return _reject(c, 90)
+        return _reject(c, "no room for a bottom")
     # walls beyond the sampled rows: extend the row evidence down to y_hi + 2.5 w
     ext = np.arange(yb, int(min(h, y_hi + r + 1.5 * w2)))
     if ext.size:
@@ -1089,20 +1086,20 @@ def _verify(c, ev: _Evidence, out: list, pending: list, refit: bool = True) -> N
             chosen = j
             break
     if chosen is None:
-        return _reject(c, 114)
+        return _reject(c, "no round bottom")
     yc = float(ycs[chosen])
     # a gap between two tubes has walls too, but below them the outlines curve away
     # (outward) rather than toward each other: the inward arc must beat the mirrored one
     out_arc = _arc_scores(ev, a2, c.b, r, np.array([yc]), level, polarity, mirror=True)[0]
     if np.isfinite(out_arc) and out_arc >= arc_f[chosen]:
-        return _reject(c, -2)
+        return _reject(c, "bottom curves outward (a gap)")
     length = yc + r - rim
     if not LENGTH_WIDTHS[0] <= length / w2 <= LENGTH_WIDTHS[1]:
-        return _reject(c, 118)
+        return _reject(c, "implausible length")
     span = (rows >= rim) & (rows < yc) & np.concatenate([light, np.zeros(rows.size - light.size, bool)])
     coverage = float(on[span].mean()) if span.any() else 0.0
     if coverage < WALL_COVERAGE_MIN:
-        return _reject(c, 122)
+        return _reject(c, "walls too sparse")
     arc_v = float(arc_f[chosen])
     out.append(_Tube(a=float(a2), b=float(c.b), top=rim, end=yc, w=float(w2),
                      score=float(coverage * arc_v * length * w2),
@@ -1176,18 +1173,6 @@ def _consistent_rows(tubes: list[_Tube]) -> list[_Tube]:
     return keep
 
 
-def _signed_gx(gray: np.ndarray) -> np.ndarray:
-    """Signed ∂/∂x of the grey level (float32 (H, W))."""
-    import cv2
-
-    return cv2.Sobel(gray, cv2.CV_32F, 1, 0, ksize=3)
-
-
-def _vertical_edges(gray: np.ndarray) -> np.ndarray:
-    """|∂/∂y| of the grey level (float32 (H, W))."""
-    import cv2
-
-    return np.abs(cv2.Sobel(gray, cv2.CV_32F, 0, 1, ksize=3))
 
 
 
