@@ -587,14 +587,25 @@ def measure_rendered(rendered, *, model=None, classify: bool = True, geometry: s
 
     pixels = np.ascontiguousarray(rendered.upright)
     if card is None:
-        correction, mm_per_px, status = card_fit.uncalibrated_correction(), None, "none"
+        correction, mm_per_px, status, homography = card_fit.uncalibrated_correction(), None, "none", None
         detection = card_detect.find_card(pixels)
         if detection:
             correction = card_fit.fit_card_correction(detection, load_card_reference(None))
             mm_per_px, status = detection.mm_per_px, "card"
-        card = (correction, mm_per_px, status)
-    correction, mm_per_px, status = card
-    ms = tuple(measure.measure_tube(pixels, r, correction=correction, mm_per_px=mm_per_px)
+            homography = getattr(detection, "homography_mm_to_px", None)
+        card = (correction, mm_per_px, status, homography)
+    correction, mm_per_px, status, homography = card
+
+    def scale_at(region):
+        # as analyze_photo: the scale at each tube's own bottom from the card's homography
+        if homography is None or not hasattr(measure, "mm_per_px_at"):
+            return mm_per_px
+        try:
+            return measure.mm_per_px_at(homography, (region.axis_col, region.inner_bottom))
+        except TubevisionInputError:
+            return mm_per_px
+
+    ms = tuple(measure.measure_tube(pixels, r, correction=correction, mm_per_px=scale_at(r))
                for r in truth_regions(rendered.truth, geometry))
     calls = tuple(classify_tube(m, model=model) for m in ms) if classify else ()
     return StudioMeasurement(ms, calls, status, card)
