@@ -168,7 +168,8 @@ def _geometry_in_box(pixels: np.ndarray, bbox: BBox, index: int, row: int, sourc
 
     This assumes an upright tube that fills its box: the axis is the box's
     centre line and the round bottom is half the width high. The liquid top
-    is the box's top until a finder that sees the meniscus supplies it.
+    is the box's top here; :func:`tubes_from_layout` replaces it by the meniscus
+    (:func:`_layout_liquid_top`).
     """
     x0, y0, x1, y1 = bbox
     width = x1 - x0
@@ -265,10 +266,14 @@ def tubes_from_layout(pixels: np.ndarray, boxes: list[BBox]) -> TubeFinding:
         if x0 < 0 or y0 < 0 or x1 > w or y1 > h:
             raise TubevisionInputError(
                 f"layout: tubes[{i}].bbox {[x0, y0, x1, y1]} reaches outside the {w}x{h} photo")
-    regions = tuple(
-        _geometry_in_box(pixels, boxes[i], index=k, row=r, source="layout")
-        for k, (i, r) in enumerate(reading_order(boxes))
-    )
+    regions = []
+    for k, (i, r) in enumerate(reading_order(boxes)):
+        g = _geometry_in_box(pixels, boxes[i], index=k, row=r, source="layout")
+        # no meniscus seen: the box's top stays (the whole column is measured, as the
+        # classifier is trained to read it); a hand-given box says a tube is there
+        lt = _layout_liquid_top(pixels, g)
+        regions.append(g if lt is None else replace(g, liquid_top=lt))
+    regions = tuple(regions)
     warnings = () if regions else ("layout lists no tubes",)
     return TubeFinding(regions=regions, expected=len(boxes), warnings=warnings)
 
@@ -1433,6 +1438,23 @@ def _refine_full(pixels: np.ndarray, cand: _Candidate, A: np.ndarray, index_hint
                 liquid_top=None if lt_pt is None else int(round(lt_pt[1])),
                 centre_row=float(centre[1]), inner_bottom=float(at(v_inner_bottom)[1]),
                 angle=angle, axis_row=float(axis_mid[1]))
+
+
+def _layout_liquid_top(pixels: np.ndarray, region: TubeRegion) -> int | None:
+    """Row just below the meniscus inside a hand-given box (None: no meniscus seen), by the finder's own step 5 (:func:`_refine_full`) along the box's vertical
+    centre line: rim at the box's top, round bottom's centre half a width above its
+    bottom (the box's shape; a layout box gives no lean)."""
+    x0, y0, x1, y1 = region.bbox
+    w = float(x1 - x0)
+    if y1 - y0 < 2 * w:
+        return None          # too short for a column above a round bottom
+    cand = _Candidate(a=region.axis_col, b=0.0, top=float(y0), end=float(y1 - 0.5 * w), w=w, strength=0.0)
+    A = np.array([[1.0, 0.0, 0.0], [0.0, 1.0, 0.0]])
+    g = _refine_full(pixels, cand, A, region.index)
+    lt = g["liquid_top"]
+    if lt is None or not (y0 <= lt < region.bottom_top):
+        return None
+    return int(lt)
 
 
 def find_tubes(pixels: np.ndarray, *, expected: int | None = None, exclude_quad=None) -> TubeFinding:

@@ -143,3 +143,26 @@ def test_masks_outline_edge_and_specular_streaks():
         at_streak = body[:, np.abs(u - strong) <= 0.2].any(axis=1)
         assert at_streak.mean() >= 0.5, (t["index"], at_streak.mean())
         assert body[:, np.abs(u) < 1 / 3].mean() < 0.02, t["index"]
+
+
+@pytest.mark.parametrize("stem", ["mixed-plain-d65", "turbidity-series-hbands", "two-rows-fl11",
+                                  "rotated-exif6-led"])
+def test_layout_boxes_get_the_meniscus(stem):
+    """[synthetic] The truth boxes given by hand (``--layout``): each filled tube's liquid
+    top is the meniscus the renderer drew, within 1.5 mm (not the box's top, where the
+    measure stage would read air); in the empty tube no meniscus is invented (its liquid
+    top stays the box's top, the whole column read as before)."""
+    from tubevision.tubes import tubes_from_layout
+
+    photo = load_photo(SAMPLES / f"{stem}.jpg")
+    truth = json.loads((SAMPLES / f"{stem}.truth.json").read_text(encoding="utf-8"))
+    finding = tubes_from_layout(photo.pixels, [tuple(t["bbox"]) for t in truth["tubes"]])
+    by_box = {tuple(t["bbox"]): t for t in truth["tubes"]}
+    assert len(finding.regions) == len(truth["tubes"])
+    for r in finding.regions:
+        t = by_box[r.bbox]
+        if t["liquid_top"] is None:
+            assert r.liquid_top == r.bbox[1], (t["index"], r.liquid_top)
+        else:
+            assert abs(r.liquid_top - t["liquid_top"]) * truth["mm_per_px"] <= 1.5, \
+                (t["index"], r.liquid_top, t["liquid_top"])
