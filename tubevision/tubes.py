@@ -366,6 +366,11 @@ WIDTH_SPREAD_STEPS = 1
 (r = :data:`WIDTH_STEP_RATIO`, so ±8 %, and with the wall tolerance ±14 %): perspective
 up to 15° makes near tubes up to ~15 % wider than far ones (pinhole geometry)."""
 
+WIDER_TRIAL_FACTORS = (1.4, 1.7, 2.0)
+"""Widths tried beyond the best verified one (its multiples): a gap between tubes in a
+close-packed rack is ~0.3-0.7 tube widths wide, a wall-streak pair ~0.7 (the streak at
+0.3 widths off the axis, common for a cylinder lit from the front)."""
+
 CENTRE_PENALTY = 0.6
 """Weight k of the central-third term in S_w: a strong line on the axis means the
 trial pair spans two tubes (wall-gap-wall in the middle), not one."""
@@ -666,21 +671,30 @@ def _candidates(rot: np.ndarray, valid: np.ndarray) -> list[_Candidate]:
     best_w, best_total, best_tubes = None, 0.0, []
     trial = list(_width_modes(ws, sc))
     done: list[float] = []
-    while trial:
-        w = trial.pop(0)
-        if any(abs(w / d - 1.0) < WIDTH_REVISIT_FRACTION for d in done):
-            continue
-        done.append(w)
-        tubes = _drop_overlapping_tubes(_verify_all(_tracks_at_width(Pn, w), ev))
-        total = sum(t.score for t in tubes)
-        if total > best_total:
-            best_w, best_total, best_tubes = w, total, tubes
-        if tubes:
-            # the walls measured by verification may say the tubes are wider or narrower
-            # than the trial width that found them: try their median width too
-            med = float(np.median([t.w for t in tubes]))
-            if abs(med / w - 1.0) > WIDTH_REVISIT_FRACTION:
-                trial.insert(0, med)
+    wider_from: list[float] = []
+    while True:
+        while trial:
+            w = trial.pop(0)
+            if w > w_max or any(abs(w / d - 1.0) < WIDTH_REVISIT_FRACTION for d in done):
+                continue
+            done.append(w)
+            tubes = _drop_overlapping_tubes(_verify_all(_tracks_at_width(Pn, w), ev))
+            total = sum(t.score for t in tubes)
+            if total > best_total:
+                best_w, best_total, best_tubes = w, total, tubes
+            if tubes:
+                # the walls measured by verification may say the tubes are wider or narrower
+                # than the trial width that found them: try their median width too
+                med = float(np.median([t.w for t in tubes]))
+                if abs(med / w - 1.0) > WIDTH_REVISIT_FRACTION:
+                    trial.insert(0, med)
+        # the gap between two tubes standing close, or a wall and a specular streak, is a
+        # narrower pair that can verify too; the whole tube round it is wider: try wider
+        # widths than the best so far (its support grows with the width, so it wins if it holds)
+        if best_w is None or best_w in wider_from:
+            break
+        wider_from.append(best_w)
+        trial = [best_w * f for f in WIDER_TRIAL_FACTORS]
     if best_w is None:
         return []
     found = list(best_tubes)
