@@ -540,7 +540,12 @@ def truth_regions(truth: dict, geometry: str = "truth") -> tuple:
     out = []
     for k, t in enumerate(truth["tubes"]):
         x0, y0, x1, y1 = (int(v) for v in t["bbox"])
-        c0, c1 = int(t["inner_col0"]), int(t["inner_col1"])
+        # TubeRegion's inner columns are the central third of the tube's width (the
+        # contract's measuring band, as the finder gives them); the truth's
+        # inner_col0/1 bound the whole inside of the glass, walls' refraction included
+        half = (int(t["inner_col1"]) - int(t["inner_col0"])) / 6.0
+        c0 = int(np.ceil(float(t["axis_col"]) - half))
+        c1 = int(np.floor(float(t["axis_col"]) + half)) + 1
         if c1 <= c0:
             c0, c1 = x0 + 1, max(x0 + 2, x1 - 1)
         top = t.get("liquid_top")
@@ -973,11 +978,18 @@ def _cmd_labelled(args) -> int:
     return 0
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse that reports usage errors as one line (exit status 2 from :func:`main`)."""
+
+    def error(self, message: str):  # noqa: D401 - argparse hook
+        raise TubevisionInputError(f"usage: {message} (see --help)")
+
+
 def build_parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(prog="python -m tubevision.classify.train",
-                                description="Build the studio training table, fit the state model, "
-                                            "or retrain it on labelled photos.")
-    sub = p.add_subparsers(dest="cmd", required=True)
+    p = _Parser(prog="tubevision train",
+                description="Build the studio training table, fit the state model, "
+                            "or retrain it on labelled photos.")
+    sub = p.add_subparsers(dest="cmd", required=True, parser_class=_Parser)
     model_default = str(Path(__file__).resolve().parent.parent / "data" / "model_state_v1.json")
     for name, text in (("table", "render studio photos and write the training CSV"),
                        ("build-and-fit", "table, then fit: the one command that rebuilds the shipped model")):
@@ -1008,9 +1020,12 @@ def main(argv: Sequence[str] | None = None) -> int:
     """Command line; returns 0 done, 2 bad input (message on stderr)."""
     logging.basicConfig(level=logging.INFO, format="%(levelname)s %(message)s")
     argv = list(sys.argv[1:] if argv is None else argv)
-    args = build_parser().parse_args(argv)
-    args.argv = argv
     try:
+        try:
+            args = build_parser().parse_args(argv)
+        except SystemExit as exc:  # --help
+            return int(exc.code or 0)
+        args.argv = argv
         if args.cmd == "table":
             return _cmd_table(args)
         if args.cmd == "build-and-fit":
@@ -1019,7 +1034,7 @@ def main(argv: Sequence[str] | None = None) -> int:
             return _cmd_fit(args)
         return _cmd_labelled(args)
     except TubevisionInputError as exc:
-        sys.stderr.write(f"error: {exc}\n")
+        sys.stderr.write(f"tubevision train: error: {exc}\n")
         return 2
 
 
