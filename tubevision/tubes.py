@@ -371,6 +371,11 @@ WIDER_TRIAL_FACTORS = (1.4, 1.7, 2.0)
 close-packed rack is ~0.3-0.7 tube widths wide, a wall-streak pair ~0.7 (the streak at
 0.3 widths off the axis, common for a cylinder lit from the front)."""
 
+NEIGHBOUR_WIDTH_RATIO = 1.15
+"""Ratio of the neighbouring widths tried round the best verified width (just beyond
+:data:`WIDTH_REVISIT_FRACTION`, so each is a new search; with the walls' tolerance of
+±6 % they leave no gap)."""
+
 CENTRE_PENALTY = 0.6
 """Weight k of the central-third term in S_w: a strong line on the axis means the
 trial pair spans two tubes (wall-gap-wall in the middle), not one."""
@@ -690,11 +695,14 @@ def _candidates(rot: np.ndarray, valid: np.ndarray) -> list[_Candidate]:
                     trial.insert(0, med)
         # the gap between two tubes standing close, or a wall and a specular streak, is a
         # narrower pair that can verify too; the whole tube round it is wider: try wider
-        # widths than the best so far (its support grows with the width, so it wins if it holds)
+        # widths than the best so far (its support grows with the width, so it wins if it
+        # holds). The score's modes may also miss the tubes' width by more than the walls'
+        # tolerance (a few tubes verify, most do not): try the neighbouring widths too,
+        # until the best width stays put
         if best_w is None or best_w in wider_from:
             break
         wider_from.append(best_w)
-        trial = [best_w * f for f in WIDER_TRIAL_FACTORS]
+        trial = [best_w * f for f in WIDER_TRIAL_FACTORS] + [best_w * NEIGHBOUR_WIDTH_RATIO ** k for k in (-1, 1)]
     if best_w is None:
         return []
     found = list(best_tubes)
