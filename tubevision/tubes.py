@@ -376,6 +376,10 @@ NEIGHBOUR_WIDTH_RATIO = 1.15
 :data:`WIDTH_REVISIT_FRACTION`, so each is a new search; with the walls' tolerance of
 ±6 % they leave no gap)."""
 
+LADDER_WIDTH_RATIO = 1.2
+"""Ratio of the widths searched one after another when no tube verifies at the width
+score's modes (each trial finds walls ±6 %, verification refits the width by up to -25/+30 %)."""
+
 CENTRE_PENALTY = 0.6
 """Weight k of the central-third term in S_w: a strong line on the axis means the
 trial pair spans two tubes (wall-gap-wall in the middle), not one."""
@@ -677,6 +681,7 @@ def _candidates(rot: np.ndarray, valid: np.ndarray) -> list[_Candidate]:
     trial = list(_width_modes(ws, sc))
     done: list[float] = []
     wider_from: list[float] = []
+    ladder_done = False
     while True:
         while trial:
             w = trial.pop(0)
@@ -699,7 +704,17 @@ def _candidates(rot: np.ndarray, valid: np.ndarray) -> list[_Candidate]:
         # holds). The score's modes may also miss the tubes' width by more than the walls'
         # tolerance (a few tubes verify, most do not): try the neighbouring widths too,
         # until the best width stays put
-        if best_w is None or best_w in wider_from:
+        if best_w is None:
+            if ladder_done:
+                break
+            # nothing verified at the score's modes (a few tubes against many narrow pairs
+            # inside them and round the card): search a ladder of widths over the range
+            ladder_done = True
+            trial = list(np.geomspace(MIN_TUBE_WIDTH_PX, w_max,
+                                      max(2, int(np.ceil(np.log(w_max / MIN_TUBE_WIDTH_PX)
+                                                         / np.log(LADDER_WIDTH_RATIO))) + 1)))
+            continue
+        if best_w in wider_from:
             break
         wider_from.append(best_w)
         trial = [best_w * f for f in WIDER_TRIAL_FACTORS] + [best_w * NEIGHBOUR_WIDTH_RATIO ** k for k in (-1, 1)]
@@ -782,6 +797,12 @@ INNER_WALL_FREE_FRACTION = 0.36
 """Half-width (fraction of the outer width) of the inside that must carry no dark line as
 dark as half the walls' (the glass walls are 0.07 widths thick, and refraction keeps them
 within ~0.1 widths of the outline)."""
+
+ABOVE_RIM_LINES_MAX = 0.05
+"""Largest fraction of the samples from 0.8 to 0.1 widths above the rim, across 1.5 widths,
+that are near-vertical edges as strong as the walls' threshold: a plain or horizontally
+banded backdrop has next to none there; the two walls' own lines, if they ran on, would
+be ~4 samples of ~50 per row (see :data:`ABOVE_RIM_MAX`, which tests those)."""
 
 ABOVE_RIM_LIGHT_MIN = 0.2
 """Smallest fraction of light-backdrop rows from 0.8 to 0.1 widths above the rim: a rim
@@ -1071,6 +1092,16 @@ def _verify(c, ev: _Evidence, out: list, pending: list, refit: bool = True) -> N
     above = near & light
     if above.sum() >= 3 and on[above].mean() > ABOVE_RIM_MAX:
         return _reject(c, "walls run on above the rim")
+    if above.sum() >= 3:
+        # above a rim stands the backdrop: no vertical lines there, across the tube's width
+        # and beside it. Where it has vertical lines as strong as the walls (a backdrop of
+        # vertical bands, seen refracted through the tubes too), two of them pass for walls
+        span = np.abs(us) <= 0.75 * w
+        ra = rows[above]
+        Xa = X[above][:, span]
+        vert = (AX[above][:, span] > thr) & (AX[above][:, span] > 2.0 * np.abs(ev.gy[ra[:, None], Xa]))
+        if vert.mean() > ABOVE_RIM_LINES_MAX:
+            return _reject(c, "vertical lines above the rim (a striped backdrop)")
     a2 = c.a + shift
     r = 0.5 * w2
     # round bottom: the first strong arc (from the rim down) below which the walls stop
