@@ -780,7 +780,7 @@ def measure_tube(pixels: np.ndarray, region, *, correction=None, mm_per_px: floa
     lab_sd = np.zeros(3)
     tau = dict(value=0.0, raw=0.0, sd=0.0, ratio=1.0, method="none")
     if not empty and n_good >= 3:
-        rgb = inner_rgb[good]
+        rgb = inner_rgb[good & _light_columns(inner_y, good)[None, :]]
         n_eff = int(good.any(axis=1).sum())
         col_lab, lab_sd, lab_sem = _lab_stats(correction, rgb, n_eff)
         air = _air_ratio(win, inner_rgb, inner_clip, light_rows & ~occluded, beside_rgb, top - menisc)
@@ -829,6 +829,37 @@ def measure_tube(pixels: np.ndarray, region, *, correction=None, mm_per_px: floa
                          clipped_fraction, highlight_fraction, n_good, edge, correction)
     return TubeMeasurement(index=region.index, empty=bool(empty), liquid=liquid, pellet=pellet,
                            features=features, warnings=tuple(warnings))
+
+
+DARK_COLUMN_FRACTION = 0.85
+"""Columns of the central third whose level is below this fraction of the brightest ones'
+(90th percentile of the column medians) see a dark part of the backdrop through the glass —
+vertical bands, or any dark pattern behind the tube, magnified by the liquid's cylinder lens
+— and are left out of the colour (contract: the colour over the light backdrop). Over a
+light backdrop the central third's columns differ by a few per cent only (its chord is
+within 6 % of constant), so nothing is left out there (our threshold)."""
+
+
+def _light_columns(inner_y: np.ndarray, good: np.ndarray) -> np.ndarray:
+    """Which columns of the central third see the light backdrop (see DARK_COLUMN_FRACTION)."""
+    ncol = inner_y.shape[1]
+    keep = np.ones(ncol, bool)
+    rows = good.any(axis=1)
+    if rows.sum() < 3 or ncol < 3:
+        return keep
+    with np.errstate(all="ignore"):
+        import warnings as _w
+
+        with _w.catch_warnings():
+            _w.simplefilter("ignore", RuntimeWarning)  # all-NaN columns
+            level = np.nanmedian(np.where(good[rows], inner_y[rows], np.nan), axis=0)
+    if not np.isfinite(level).any():
+        return keep
+    top = float(np.nanpercentile(level, 90))
+    keep = np.isfinite(level) & (level >= DARK_COLUMN_FRACTION * top)
+    if keep.sum() < 2:
+        return np.ones(ncol, bool)
+    return keep
 
 
 def _classify_rows(beside_y: np.ndarray):
