@@ -678,6 +678,7 @@ def _candidates(rot: np.ndarray, valid: np.ndarray) -> list[_Candidate]:
     # inside of a tube (specular streaks, the liquid's edges) can mimic a narrower pair,
     # but nothing narrower mimics a whole tube's walls, rim and bottom.
     best_w, best_total, best_tubes = None, 0.0, []
+    verified: list[_Tube] = []
     trial = list(_width_modes(ws, sc))
     done: list[float] = []
     wider_from: list[float] = []
@@ -690,6 +691,7 @@ def _candidates(rot: np.ndarray, valid: np.ndarray) -> list[_Candidate]:
             done.append(w)
             tubes = _drop_overlapping_tubes(_verify_all(_tracks_at_width(Pn, w), ev))
             total = sum(t.score for t in tubes)
+            verified.extend(tubes)
             if total > best_total:
                 best_w, best_total, best_tubes = w, total, tubes
             if tubes:
@@ -720,10 +722,17 @@ def _candidates(rot: np.ndarray, valid: np.ndarray) -> list[_Candidate]:
         trial = [best_w * f for f in WIDER_TRIAL_FACTORS] + [best_w * NEIGHBOUR_WIDTH_RATIO ** k for k in (-1, 1)]
     if best_w is None:
         return []
-    found = list(best_tubes)
+    # tubes verified at the other trial widths stay in the running where their measured
+    # width agrees with the best width's tubes (one tube size per rack; a wall on the edge
+    # of the tolerance verifies at one trial width and not at the next)
+    w_ref = float(np.median([t.w for t in best_tubes])) if best_tubes else best_w
+    found = list(best_tubes) + [t for t in verified if t not in best_tubes
+                                and abs(t.w / w_ref - 1.0) <= ROW_WIDTH_TOLERANCE]
+    # perspective: nearer tubes wider, farther ones narrower, round the width the verified
+    # walls measure (the trial width that found them may lie off it by the walls' tolerance)
     for k in range(-WIDTH_SPREAD_STEPS, WIDTH_SPREAD_STEPS + 1):
         if k:
-            w = best_w * WIDTH_STEP_RATIO ** (2 * k)
+            w = w_ref * WIDTH_STEP_RATIO ** (2 * k)
             found.extend(_verify_all(_tracks_at_width(Pn, w), ev, known=found))
     return _consistent_rows(_drop_overlapping_tubes(found))
 
@@ -1214,7 +1223,9 @@ def _up_box(t: _Tube) -> BBox:
 
 
 def _consistent_rows(tubes: list[_Tube]) -> list[_Tube]:
-    """Drop tubes whose width is off their rack row's median (:data:`ROW_WIDTH_TOLERANCE`)."""
+    """Drop tubes whose width or length (rim to the bottom's centre) is off their rack row's
+    median by more than :data:`ROW_WIDTH_TOLERANCE` (one tube size per rack row: a box that
+    runs on into the row above, or stops at a rack bar, is not that tube's)."""
     if len(tubes) < 3:
         return tubes
     order = reading_order([_up_box(t) for t in tubes])
@@ -1223,11 +1234,13 @@ def _consistent_rows(tubes: list[_Tube]) -> list[_Tube]:
         rows.setdefault(r, []).append(i)
     keep = []
     for members in rows.values():
-        ws = np.array([tubes[i].w for i in members])
-        med = float(np.median(ws))
+        med = float(np.median([tubes[i].w for i in members]))
+        med_len = float(np.median([tubes[i].end - tubes[i].top for i in members]))
         for i in members:
-            if len(members) < 3 or abs(tubes[i].w / med - 1.0) <= ROW_WIDTH_TOLERANCE:
-                keep.append(tubes[i])
+            t = tubes[i]
+            if len(members) < 3 or (abs(t.w / med - 1.0) <= ROW_WIDTH_TOLERANCE
+                                    and abs((t.end - t.top) / med_len - 1.0) <= ROW_WIDTH_TOLERANCE):
+                keep.append(t)
     return keep
 
 
