@@ -13,6 +13,7 @@ Figures (printed): precision and recall of tubes (found boxes matched greedily t
 boxes by IoU ≥ 0.5, best pairs first), mean box IoU of the matches, liquid-top error
 (mm, on the tube's axis, at the truth's mm per px corrected by the homography's local
 scale) and how often a liquid top is missed or invented (empty tubes), time per photo;
+the same liquid-top figures for the truth boxes given as a layout (``--layout`` path);
 then breakdowns per layout, backdrop, roll, perspective and contents; then the finding
 time on a 12-megapixel photo (a 2016×1512 render enlarged ×2 by linear interpolation:
 the finder's cost depends on the pixel count, not on the detail).
@@ -32,6 +33,7 @@ import statistics
 import sys
 import time
 from collections import defaultdict
+from dataclasses import replace
 
 import numpy as np
 
@@ -212,10 +214,11 @@ def main(argv=None) -> int:
     ap.add_argument("--no-12mp", action="store_true", help="skip the 12-MP timing")
     ap.add_argument("--verbose", action="store_true", help="one line per photo")
     args = ap.parse_args(argv)
-    from tubevision.tubes import find_tubes
+    from tubevision.tubes import find_tubes, tubes_from_layout
 
     n = args.photos or (12 if args.quick else 72)
     total = Tally()
+    layout_tally = Tally()     # the --layout path: truth boxes given by hand
     groups: dict[str, dict[str, Tally]] = defaultdict(lambda: defaultdict(Tally))
     t_all = time.perf_counter()
     n_cut = 0
@@ -232,6 +235,11 @@ def main(argv=None) -> int:
         regions = [r for r in f.regions if not any(iou(r.bbox, b) >= 0.3 for b in cut)]
         pairs = match(regions, truth)
         total.add(truth, regions, pairs, dt)
+        lf = tubes_from_layout(img, [tuple(t["bbox"]) for t in truth])
+        lpairs = match(list(lf.regions), truth)
+        # a layout box with no meniscus seen keeps the box's top: that counts as none here
+        lregions = [r if r.liquid_top != r.bbox[1] else replace(r, liquid_top=None) for r in lf.regions]
+        layout_tally.add(truth, lregions, lpairs)
         keys = {"layout": cond["layout"], "backdrop": cond["backdrop"],
                 "roll": "|roll| < 5" if abs(cond["roll"]) < 5 else "|roll| 5-10",
                 "perspective": "tilt < 7.5" if cond["tilt"] < 7.5 else "tilt 7.5-15"}
@@ -258,6 +266,7 @@ def main(argv=None) -> int:
     print(f"tube finder on {n} studio photos (seed {args.seed}), {time.perf_counter() - t_all:.0f} s in all; "
           f"{n_cut} tubes cut by the frame's edge left out")
     print(total.line("ALL"))
+    print(layout_tally.line("layout (truth boxes)"))
     for g, members in groups.items():
         print(f"-- by {g}")
         for v in sorted(members):

@@ -266,12 +266,19 @@ def tubes_from_layout(pixels: np.ndarray, boxes: list[BBox]) -> TubeFinding:
         if x0 < 0 or y0 < 0 or x1 > w or y1 > h:
             raise TubevisionInputError(
                 f"layout: tubes[{i}].bbox {[x0, y0, x1, y1]} reaches outside the {w}x{h} photo")
+    lean = 0.0
+    if boxes:
+        from .image import reduced_copy
+
+        small, _ = reduced_copy(pixels, max_side=FIND_MAX_SIDE_PX)
+        gray = small.astype(np.float32).mean(axis=2)
+        lean = -_estimate_roll_deg(gray, np.ones(gray.shape, bool))    # bottom to the right: +
     regions = []
     for k, (i, r) in enumerate(reading_order(boxes)):
         g = _geometry_in_box(pixels, boxes[i], index=k, row=r, source="layout")
         # no meniscus seen: the box's top stays (the whole column is measured, as the
         # classifier is trained to read it); a hand-given box says a tube is there
-        lt = _layout_liquid_top(pixels, g)
+        lt = _layout_liquid_top(pixels, g, lean)
         regions.append(g if lt is None else replace(g, liquid_top=lt))
     regions = tuple(regions)
     warnings = () if regions else ("layout lists no tubes",)
@@ -1506,15 +1513,31 @@ def _refine_full(pixels: np.ndarray, cand: _Candidate, A: np.ndarray, index_hint
                 angle=angle, axis_row=float(axis_mid[1]))
 
 
-def _layout_liquid_top(pixels: np.ndarray, region: TubeRegion) -> int | None:
-    """Row just below the meniscus inside a hand-given box (None: no meniscus seen), by the finder's own step 5 (:func:`_refine_full`) along the box's vertical
-    centre line: rim at the box's top, round bottom's centre half a width above its
-    bottom (the box's shape; a layout box gives no lean)."""
+def _layout_liquid_top(pixels: np.ndarray, region: TubeRegion, lean_deg: float = 0.0) -> int | None:
+    """Row just below the meniscus inside a hand-given box (None: no meniscus seen), by
+    the finder's own step 5 (:func:`_refine_full`) along the line through the box's centre
+    at the photo's lean ``lean_deg`` (degrees, bottom to the right positive): rim at the
+    box's top, round bottom's centre half a width above its bottom."""
     x0, y0, x1, y1 = region.bbox
-    w = float(x1 - x0)
-    if y1 - y0 < 2 * w:
+    W, H = float(x1 - x0), float(y1 - y0)
+    # a box drawn round a leaning tube (camera roll) is wider than the tube: the lean is
+    # the photo's roll (step 1's estimate, ``lean_deg``), the tube's width what the lean
+    # leaves of the box's width
+    t = float(np.tan(np.radians(lean_deg)))
+    if 0.5 * H * abs(t) < W / 12:
+        # the box's centre line stays within the middle of the central third (a sixth of
+        # the width each side) from rim to bottom: upright enough, the estimate's own
+        # scatter (± a bin, 0.5°) is not worth following
+        t = 0.0
+    cos_a = 1.0 / np.sqrt(1.0 + t * t)
+    # box width = w / cos + (H - w·(1 + sin)) · |tan| for a capsule of width w (geometry),
+    # solved for w to first order: w ≈ (W - H·|tan|) · cos
+    w = max(0.5 * W, (W - H * abs(t)) * cos_a)
+    if H < 2 * w:
         return None          # too short for a column above a round bottom
-    cand = _Candidate(a=region.axis_col, b=0.0, top=float(y0), end=float(y1 - 0.5 * w), w=w, strength=0.0)
+    xc, yc = 0.5 * (x0 + x1 - 1), 0.5 * (y0 + y1 - 1)
+    top, end = y0 + 0.5 * w * abs(t), y1 - 0.5 * w
+    cand = _Candidate(a=xc - t * yc, b=t, top=float(top), end=float(end), w=w, strength=0.0)
     A = np.array([[1.0, 0.0, 0.0], [0.0, 1.0, 0.0]])
     g = _refine_full(pixels, cand, A, region.index)
     lt = g["liquid_top"]
