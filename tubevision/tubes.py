@@ -1513,6 +1513,11 @@ def _refine_full(pixels: np.ndarray, cand: _Candidate, A: np.ndarray, index_hint
                 angle=angle, axis_row=float(axis_mid[1]))
 
 
+LAYOUT_LEAN_MIN_PX = 1.0
+"""A layout box's lean is followed only when it moves the axis at the box's ends by at least
+this many pixels from the box's centre line."""
+
+
 def _layout_liquid_top(pixels: np.ndarray, region: TubeRegion, lean_deg: float = 0.0) -> int | None:
     """Row just below the meniscus inside a hand-given box (None: no meniscus seen), by
     the finder's own step 5 (:func:`_refine_full`) along the line through the box's centre
@@ -1524,10 +1529,9 @@ def _layout_liquid_top(pixels: np.ndarray, region: TubeRegion, lean_deg: float =
     # the photo's roll (step 1's estimate, ``lean_deg``), the tube's width what the lean
     # leaves of the box's width
     t = float(np.tan(np.radians(lean_deg)))
-    if 0.5 * H * abs(t) < W / 12:
-        # the box's centre line stays within the middle of the central third (a sixth of
-        # the width each side) from rim to bottom: upright enough, the estimate's own
-        # scatter (± a bin, 0.5°) is not worth following
+    if 0.5 * H * abs(t) < LAYOUT_LEAN_MIN_PX:
+        # the lean moves the axis by less than a pixel from rim to bottom: nothing to follow
+        # at the samples' resolution, only the estimate's own scatter (± a bin, 0.5°)
         t = 0.0
     cos_a = 1.0 / np.sqrt(1.0 + t * t)
     # box width = w / cos + (H - w·(1 + sin)) · |tan| for a capsule of width w (geometry),
