@@ -317,9 +317,15 @@ def tubes_from_layout(pixels: np.ndarray, boxes: list[BBox]) -> TubeFinding:
 #    inward rather than outward (a gap between two tubes). The rim and the
 #    bottom's centre come from here; a track longer than a tube is split at
 #    its longest gap (two rack rows). The likely width whose verified tubes
-#    are best supported wins, and widths ±8 % round it are added
-#    (perspective); overlaps keep the better supported, and a tube whose width
-#    is off its rack row's median is dropped. The bottom is refined on
+#    are best supported wins; its multiples (1.4, 1.7, 2×: a gap between close
+#    tubes or a wall-streak pair is narrower than the tube round it) and
+#    neighbours (×/÷ 1.15) are tried until the best width stays put, and a
+#    ladder of widths (×1.2) when nothing verifies at the modes. Tubes verified
+#    at any trial width whose width agrees are kept, and widths ±8 % round the
+#    measured width are added (perspective); overlaps keep the better
+#    supported, and a tube whose width or length is off its rack row's median
+#    is dropped. No vertical lines may stand above a rim (a striped backdrop).
+#    The bottom is refined on
 #    full-resolution pixels along the axis, where the outline ends.
 # 5. Liquid top, on full-resolution pixels sampled along each tube's axis:
 #    the ratio of the central third to the backdrop just beside the glass in
