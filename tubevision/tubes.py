@@ -715,7 +715,13 @@ def _candidates(rot: np.ndarray, valid: np.ndarray) -> list[_Candidate]:
             if w > w_max or any(abs(w / d - 1.0) < WIDTH_REVISIT_FRACTION for d in done):
                 continue
             done.append(w)
-            tubes = _drop_overlapping_tubes(_verify_all(_tracks_at_width(Pn, w), ev))
+            cands = _tracks_at_width(Pn, w)
+            if best_w is not None and w > VERIFY_WIDTH_RATIO[1] * best_w:
+                # a much wider pair centred on a tube verified already is that tube with a
+                # neighbour's wall, not a tube: not worth verifying (a gap or a wall-streak
+                # pair is centred off the tube round it)
+                cands = [c for c in cands if not any(_same_axis(c, k, widths=False) for k in best_tubes)]
+            tubes = _drop_overlapping_tubes(_verify_all(cands, ev))
             total = sum(t.score for t in tubes)
             verified.extend(tubes)
             if total > best_total:
@@ -1218,12 +1224,12 @@ def _verify_all(cands, ev: _Evidence, known: list[_Tube] | None = None) -> list[
     return out
 
 
-def _same_axis(c, k: _Tube) -> bool:
+def _same_axis(c, k: _Tube, widths: bool = True) -> bool:
     y0, y1 = max(c.top, k.top), min(c.end, k.end)
     if y1 - y0 < 0.5 * (c.end - c.top):
         return False
     ym = 0.5 * (y0 + y1)
-    return abs((c.a + c.b * ym) - (k.a + k.b * ym)) < 0.1 * k.w and abs(c.w / k.w - 1) < 0.2
+    return abs((c.a + c.b * ym) - (k.a + k.b * ym)) < 0.1 * k.w and (not widths or abs(c.w / k.w - 1) < 0.2)
 
 
 def _drop_overlapping_tubes(tubes: list[_Tube]) -> list[_Tube]:
