@@ -338,6 +338,16 @@ def tubes_from_layout(pixels: np.ndarray, boxes: list[BBox]) -> TubeFinding:
 #    own, then at a lower threshold (the Fresnel step of clear water); none
 #    means an empty tube.
 
+COARSE_MAX_SIDE_PX = 512
+"""Longer side (px) of the first, quick search. Its result stands when the tubes found
+there are at least :data:`COARSE_MIN_WIDTH_PX` wide; otherwise the search runs again on
+the :data:`FIND_MAX_SIDE_PX` copy (our choice, measured in ``bench/bench_tubes.py``)."""
+
+COARSE_MIN_WIDTH_PX = 20
+"""Median tube width (px of the quick search's copy) above which its result stands: wide
+enough that walls, rim and round bottom are each several pixels (≈ 2.7 × the narrowest
+width looked for, :data:`MIN_TUBE_WIDTH_PX`)."""
+
 FIND_MAX_SIDE_PX = 1024
 """Longer side (px) of the reduced copy the finder searches. A 24-tube rack
 filling a 12-MP photo still gives tubes ≳ 25 px wide there (at 768 px the walls
@@ -1615,22 +1625,29 @@ def find_tubes(pixels: np.ndarray, *, expected: int | None = None, exclude_quad=
                                  or expected < 1):
         raise TubevisionInputError(f"expected: number of tubes must be a positive integer, got {expected!r}")
     quad = _validate_quad(exclude_quad)
-    small, scale = reduced_copy(pixels, max_side=FIND_MAX_SIDE_PX)
-    hs, ws = small.shape[:2]
-    valid = np.ones((hs, ws), np.uint8)
-    if quad is not None:
-        q = (quad + 0.5) / scale - 0.5
-        c = q.mean(axis=0)
-        q = c + (q - c) * 1.08     # a margin round the card (its edge and shadow)
-        cv2.fillPoly(valid, [np.round(q).astype(np.int32)], 0)
-    smallf = small.astype(np.float32)
-    gray = smallf.mean(axis=2)
-    roll = _estimate_roll_deg(gray, valid.astype(bool))
-    M = cv2.getRotationMatrix2D((ws / 2.0, hs / 2.0), roll, 1.0)
-    rot = cv2.warpAffine(smallf, M, (ws, hs), flags=cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
-    rvalid = cv2.warpAffine(valid, M, (ws, hs), flags=cv2.INTER_NEAREST, borderValue=0)
-    rvalid = cv2.erode(rvalid, np.ones((3, 3), np.uint8)).astype(bool)
-    cands = _candidates(rot, rvalid)
+    # coarse to fine: a rack whose tubes come out wide on a small copy is searched there
+    # (fast); narrow tubes (many in a row, or a distant rack) or none found: the full search
+    for side in (COARSE_MAX_SIDE_PX, FIND_MAX_SIDE_PX):
+        small, scale = reduced_copy(pixels, max_side=side)
+        hs, ws = small.shape[:2]
+        valid = np.ones((hs, ws), np.uint8)
+        if quad is not None:
+            q = (quad + 0.5) / scale - 0.5
+            c = q.mean(axis=0)
+            q = c + (q - c) * 1.08     # a margin round the card (its edge and shadow)
+            cv2.fillPoly(valid, [np.round(q).astype(np.int32)], 0)
+        smallf = small.astype(np.float32)
+        gray = smallf.mean(axis=2)
+        roll = _estimate_roll_deg(gray, valid.astype(bool))
+        M = cv2.getRotationMatrix2D((ws / 2.0, hs / 2.0), roll, 1.0)
+        rot = cv2.warpAffine(smallf, M, (ws, hs), flags=cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
+        rvalid = cv2.warpAffine(valid, M, (ws, hs), flags=cv2.INTER_NEAREST, borderValue=0)
+        rvalid = cv2.erode(rvalid, np.ones((3, 3), np.uint8)).astype(bool)
+        cands = _candidates(rot, rvalid)
+        if max(pixels.shape[:2]) <= side:
+            break
+        if cands and float(np.median([c.w for c in cands])) >= COARSE_MIN_WIDTH_PX:
+            break
     Mi = cv2.invertAffineTransform(M)
     A = Mi * scale
     A[:, 2] += 0.5 * scale - 0.5
