@@ -39,6 +39,7 @@ import time
 
 import numpy as np
 
+from tubevision.errors import TubevisionInputError
 from tubevision.scheme import (TubeObservation, conclude, judge_step, load_scheme, parse_labels)
 
 GROUP1 = ("Ag+", "Pb2+", "Hg2^2+")
@@ -206,7 +207,11 @@ def photo_session(scheme, ions: set[str], seed: int, spoil_step: str | None = No
 
             opts = AnalysisOptions(scheme="group1", step=step, labels=labels_text, expected_tubes=3,
                                    layout_boxes=boxes if truth_boxes else None)
-            a = analyze_photo(photo_from_array(photo.upright, name=f"{step}.png"), opts, scheme=scheme)
+            try:
+                a = analyze_photo(photo_from_array(photo.upright, name=f"{step}.png"), opts, scheme=scheme)
+            except TubevisionInputError:  # fewer tubes found than labelled: this step is lost
+                flagged[step] = True
+                continue
             flagged[step] = bool(a.judgement.control_failures)
             records.append(build_record(a))
         else:
@@ -223,6 +228,8 @@ def photo_session(scheme, ions: set[str], seed: int, spoil_step: str | None = No
             j = judge_step(scheme, step, obs, labels)
             flagged[step] = bool(j.control_failures)
             records.append(_record(j, obs, labels, step))
+    if not records:  # no step could be analysed: every call inconclusive
+        return {"samples": {"sample": {"calls": {ion: "inconclusive" for ion in GROUP1}}}}, flagged
     return conclude(records), flagged
 
 

@@ -418,7 +418,10 @@ class LiquidMeasurement:
 @dataclass(frozen=True)
 class PelletMeasurement:
     """Settled solid at the bottom: ``height_mm`` (None without a scale or when absent)
-    on the axis from the inside bottom; ``lab``/``lab_sd`` CIELAB D65 of the solid."""
+    on the axis from the inside bottom; ``lab``/``lab_sd`` CIELAB D65 of the solid.
+    ``light_solid_hidden`` (when none is found): the lowest rows, where a thin solid would
+    sit, see only the light backdrop, so a white solid there could not be told apart from
+    it (an opaque white layer reads like the liquid over white)."""
 
     present: bool
     height_mm: float | None = None
@@ -428,6 +431,7 @@ class PelletMeasurement:
     n_pixels: int = 0
     height_px: float = 0.0
     contrast_de00: float = 0.0
+    light_solid_hidden: bool = False
 
 
 @dataclass(frozen=True)
@@ -1074,6 +1078,25 @@ def _band_texture(i_y, b_y, cls_light, cls_dark, t_y, s_y, banded: bool, stop: i
     return out
 
 
+HIDDEN_SOLID_ZONE_MM = 1.5
+"""Height (mm) above the lowest judged row within which a dark backdrop row must be seen
+for a thin white solid to show (our choice: the issue's smallest solid is 1 mm). Without a
+card scale, :data:`HIDDEN_SOLID_ZONE_FRACTION` of the tube's width stands in."""
+HIDDEN_SOLID_ZONE_FRACTION = 0.1
+"""The zone of :data:`HIDDEN_SOLID_ZONE_MM` as a fraction of the tube's outer width (1.6 mm
+for a 16 mm tube)."""
+
+
+def _no_solid(cls_dark: np.ndarray, last_judged: int, width: float, mm_per_px, banded: bool):
+    """No solid found; say whether a white one could hide against a light band (see
+    :class:`PelletMeasurement`): common practice is to look at a white precipitate against
+    a dark background, and no row of the zone here has one."""
+    zone = (HIDDEN_SOLID_ZONE_MM / mm_per_px if mm_per_px else HIDDEN_SOLID_ZONE_FRACTION * width)
+    lo = max(0, int(last_judged - max(2, round(zone))))
+    dark_seen = bool(banded and cls_dark[lo:max(lo + 1, last_judged)].any())
+    return PelletMeasurement(present=False, light_solid_hidden=not dark_seen)
+
+
 def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_rows, banded, beside_y,
                  beside_rgb):
     """Settled solid at the bottom (module docstring). Returns (PelletMeasurement, info)."""
@@ -1202,7 +1225,7 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     walked = np.arange(j + 1, last + 1)
     solid_idx = walked[is_solid[walked]]
     if solid_idx.size == 0:
-        return none, info
+        return _no_solid(cls_dark, rows.size - skip, width, mm_per_px, banded), info
     top_j = int(solid_idx.min())
     start = int(solid_idx.max())
     run = slice(top_j, start + 1)
@@ -1269,7 +1292,7 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     min_px = PELLET_MIN_HEIGHT_PX if mm_per_px is None else max(PELLET_MIN_HEIGHT_PX - 1,
                                                                 PELLET_MIN_HEIGHT_MM / mm_per_px)
     if height_px < min_px or contrast < PELLET_MIN_CONTRAST_DE00 or follow > PELLET_MAX_BAND_FOLLOW:
-        return none, info
+        return _no_solid(cls_dark, rows.size - skip, width, mm_per_px, banded), info
     # colour of the solid: the axis strip over the run, highlights out
     srows = rows[run][is_solid[run]]
     px = win.lin[srows, a0:a1].reshape(-1, 3)

@@ -340,8 +340,8 @@ def tubes_from_layout(pixels: np.ndarray, boxes: list[BBox]) -> TubeFinding:
 
 COARSE_MAX_SIDE_PX = 512
 """Longer side (px) of the first, quick search. Its result stands when the tubes found
-there are at least :data:`COARSE_MIN_WIDTH_PX` wide; otherwise the search runs again on
-the :data:`FIND_MAX_SIDE_PX` copy (our choice, measured in ``bench/bench_tubes.py``)."""
+there are at least :data:`COARSE_MIN_WIDTH_PX` wide (and as many as the user expects, when
+told); otherwise the search runs again on the :data:`FIND_MAX_SIDE_PX` copy (our choice, measured in ``bench/bench_tubes.py``)."""
 
 COARSE_MIN_WIDTH_PX = 20
 """Median tube width (px of the quick search's copy) above which its result stands: wide
@@ -1646,7 +1646,8 @@ def find_tubes(pixels: np.ndarray, *, expected: int | None = None, exclude_quad=
         cands = _candidates(rot, rvalid)
         if max(pixels.shape[:2]) <= side:
             break
-        if cands and float(np.median([c.w for c in cands])) >= COARSE_MIN_WIDTH_PX:
+        if (cands and float(np.median([c.w for c in cands])) >= COARSE_MIN_WIDTH_PX
+                and (expected is None or len(cands) == expected)):
             break
     Mi = cv2.invertAffineTransform(M)
     A = Mi * scale

@@ -347,3 +347,17 @@ def test_round_bottom_lens_is_not_a_solid(lens):
     assert not water.pellet.present and not yellow.pellet.present
     assert black.pellet.present and black.pellet.height_mm == pytest.approx(2.0, abs=0.2)
     assert white.pellet.present
+
+def test_no_solid_says_when_a_white_solid_could_hide_against_a_light_band():
+    # a white solid reads like the liquid over a light band; only a dark row near the bottom
+    # would show it (common practice: view a white precipitate against a dark background)
+    from tubevision.measure import _no_solid
+
+    dark = np.zeros(100, bool)
+    assert _no_solid(dark, 90, 60.0, 0.1, True).light_solid_hidden          # all light
+    dark[85] = True                                                          # 0.5 mm up: seen
+    assert not _no_solid(dark, 90, 60.0, 0.1, True).light_solid_hidden
+    dark[:] = False
+    dark[60] = True                                                          # 3 mm up: too high
+    assert _no_solid(dark, 90, 60.0, 0.1, True).light_solid_hidden
+    assert _no_solid(np.ones(100, bool), 90, 60.0, 0.1, False).light_solid_hidden   # plain backdrop

@@ -48,6 +48,25 @@ def test_chloride_step_negative_sample():
     assert "absent" in j.outcome_for(1)["meaning"]
 
 
+def test_no_solid_seen_where_a_light_one_could_hide_is_inconclusive_not_negative():
+    # A white solid against a light backdrop band reads like the liquid there (measure stage:
+    # light_solid_hidden). With a white positive control beside it, "no precipitate" is then
+    # not evidence of absence; the blank's own check is unchanged.
+    import dataclasses
+
+    hidden = dataclasses.replace(clear(1), light_solid_hidden=True)
+    j = judge_step(G1, "chloride-precipitation", [settled(0, *WHITE), hidden, clear(2)], LABELS3)
+    assert _verdicts(j) == {"control": "positive", "unknown A": "inconclusive", "blank": "negative"}
+    assert "light backdrop" in j.outcome_for(1)["meaning"]
+    # a dark control solid would show against the light band: that reason does not apply
+    j = judge_step(G1, "chloride-precipitation", [settled(0, *BLACK), hidden, clear(2)], LABELS3)
+    assert "light backdrop" not in j.outcome_for(1)["meaning"]
+    # the flag comes through the record too (observation_from_record)
+    rec = {"index": 1, "state": "clear", "confidence": 0.9, "liquid": {"lab": [90, 0, 0]},
+           "pellet": {"present": False, "light_solid_hidden": True}}
+    assert observation_from_record(rec).light_solid_hidden
+
+
 def test_spoiled_control_flags_the_step_and_samples_become_inconclusive():
     # The HCl has been replaced by water: the control (all three ions) stays clear.
     obs = [clear(0), settled(1, *WHITE), clear(2)]

@@ -146,6 +146,8 @@ def _tube(analysis, i: int) -> dict[str, Any]:
         "lab": _vec(p.lab) if p.present else None,
         "colour_name": call.pellet_colour_name if p.present else None,
     }
+    if not p.present and getattr(p, "light_solid_hidden", False):
+        pellet["light_solid_hidden"] = True
     if p.present:
         pellet["height_mm_sd"] = _num(getattr(p, "height_mm_sd", None), 2)
         pellet["lab_sd"] = _vec(getattr(p, "lab_sd", None))

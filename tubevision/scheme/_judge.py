@@ -72,6 +72,8 @@ class TubeObservation:
     pellet_lab : (L*, a*, b*) or None
     pellet_colour_name : str or None
     turbidity_sd : float or None — standard uncertainty of ``turbidity``, if known.
+    light_solid_hidden : bool — no solid found, but the bottom showed only the light
+        backdrop, where a white solid would not show (measure stage).
     """
 
     index: int
@@ -85,6 +87,7 @@ class TubeObservation:
     pellet_lab: tuple[float, float, float] | None
     pellet_colour_name: str | None
     turbidity_sd: float | None = None
+    light_solid_hidden: bool = False
 
 
 def _lab_or_none(v) -> tuple[float, float, float] | None:
@@ -126,6 +129,7 @@ def observation_from(measurement: Any, call: Any) -> TubeObservation:
         pellet_lab=_lab_or_none(getattr(pel, "lab", None)) if present else None,
         pellet_colour_name=getattr(call, "pellet_colour_name", None) if present else None,
         turbidity_sd=_num_or_none(getattr(liq, "turbidity_sd", None)) if liq is not None else None,
+        light_solid_hidden=bool(getattr(pel, "light_solid_hidden", False)) and not present,
     )
 
 
@@ -142,6 +146,7 @@ def observation_from_record(tube: dict) -> TubeObservation:
         pellet_lab=_lab_or_none(pel.get("lab")) if present else None,
         pellet_colour_name=pel.get("colour_name") if present else None,
         turbidity_sd=_num_or_none(liq.get("turbidity_sd")),
+        light_solid_hidden=bool(pel.get("light_solid_hidden", False)) and not present,
     )
 
 
@@ -425,6 +430,20 @@ def _diagnose(scheme: Scheme, step: Step, role: str, obs: TubeObservation, q: di
     return out
 
 
+LIGHT_SOLID_MIN_L = 60.0
+"""L* above which a settled solid counts as light (white, pale yellow): one that reads
+like the light backdrop behind it (our threshold; the backdrop's light bands are L* ≈ 90)."""
+
+
+def _control_solid_is_light(obs_list, roles) -> bool:
+    """Whether a positive control in the photo shows a light settled solid."""
+    for pos, role in roles.items():
+        o = obs_list[pos - 1]
+        if role == "control" and o.pellet_present and o.pellet_lab is not None and o.pellet_lab[0] >= LIGHT_SOLID_MIN_L:
+            return True
+    return False
+
+
 def judge_step(scheme: Scheme, step: str, observations: Sequence[TubeObservation],
                labels: dict[int, str]) -> StepJudgement:
     """Judge every labelled tube of one photo against one step of a scheme.
@@ -523,6 +542,10 @@ def judge_step(scheme: Scheme, step: str, observations: Sequence[TubeObservation
                 elif verdict == "negative" and pv > hi:
                     verdict, why = "inconclusive", (f"matches the expected negative but lies nearer the positive "
                                                     f"control (position {pv:.2f})")
+            if verdict == "negative" and obs.light_solid_hidden and _control_solid_is_light(obs_list, roles):
+                verdict, why = "inconclusive", ("no solid seen, but this tube's bottom showed only the light "
+                                                "backdrop, where a light solid like the positive control's "
+                                                "would not show (place a dark band behind the bottoms)")
             if failures and verdict != "inconclusive":
                 why = f"{verdict} by appearance, but the controls failed at this step"
                 verdict = "inconclusive"
