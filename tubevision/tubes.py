@@ -430,6 +430,11 @@ MAX_GAP_WIDTHS = 1.5
 (12 mm on a 16 mm tube in common racks, from memory), but not the space between two rack
 rows (a base plate and free space, ≳ 1.5 widths)."""
 
+BOTTOM_SEARCH_WIDTHS = 1.3
+"""How far below the walls' end (in tube widths) the outline's bottom is looked for on
+full-resolution pixels (our choice: the hemisphere adds 0.5 width, the walls' end may be
+placed up to ~0.35 width short, plus margin)."""
+
 WALL_FRACTION = 0.07
 """Glass wall thickness as a fraction of the outer width (a 16 mm tube has ≈ 1.1 mm
 walls, common lab glassware, from memory)."""
@@ -1515,17 +1520,23 @@ def _refine_full(pixels: np.ndarray, cand: _Candidate, A: np.ndarray, index_hint
     v_end = length - v0
     # bottom: last row near the expected round bottom where the axis differs from beside
     diff = np.abs(inner - beside).sum(axis=1) / np.maximum(beside.mean(axis=1) * 3, 1e-3)
-    lo_b, hi_b = int(v_end + 0.2 * w_full), int(min(nv, v_end + 0.85 * w_full))
+    # the walls' end (v_end) from the reduced copy can stop up to about a third of the width
+    # short of the round bottom's centre (a band or the solid hides the walls' last rows), so
+    # the outline's end is looked for down to 1.3 widths below it; under a tube the axis and
+    # the strips beside it see the same backdrop, so no later row differs
+    lo_b, hi_b = int(v_end + 0.2 * w_full), int(min(nv, v_end + BOTTOM_SEARCH_WIDTHS * w_full))
     v_bottom = v_end + 0.5 * w_full
     idx = np.nonzero(diff[lo_b:hi_b] > 0.15)[0]
     if idx.size:
         vb = lo_b + idx[-1] + 1.0
-        if v_end + 0.3 * w_full <= vb <= v_end + 0.8 * w_full:
+        if v_end + 0.3 * w_full <= vb <= v_end + (BOTTOM_SEARCH_WIDTHS - 0.05) * w_full:
             v_bottom = vb
     v_centre = v_bottom - 0.5 * w_full
     v_inner_bottom = v_bottom - WALL_FRACTION * w_full
     lo_m = int(round(v_rim + 0.25 * w_full))
-    hi_m = int(round(v_centre - MENISCUS_LOWEST_FRACTION * w_full))
+    # the meniscus is looked for above the round bottom as the walls place it (a bottom
+    # found further down must not open the search to a solid's top edge)
+    hi_m = int(round(min(v_centre, v_end + 0.3 * w_full) - MENISCUS_LOWEST_FRACTION * w_full))
     v_lt = _meniscus(inner, beside, flat, lo_m, hi_m, w_full)
 
     def at(v, u=0.0):
