@@ -338,12 +338,12 @@ def tubes_from_layout(pixels: np.ndarray, boxes: list[BBox]) -> TubeFinding:
 #    own, then at a lower threshold (the Fresnel step of clear water); none
 #    means an empty tube.
 
-COARSE_MAX_SIDE_PX = 512
+COARSE_MAX_SIDE_PX = 640
 """Longer side (px) of the first, quick search. Its result stands when the tubes found
 there are at least :data:`COARSE_MIN_WIDTH_PX` wide (and as many as the user expects, when
 told); otherwise the search runs again on the :data:`FIND_MAX_SIDE_PX` copy (our choice, measured in ``bench/bench_tubes.py``)."""
 
-COARSE_MIN_WIDTH_PX = 20
+COARSE_MIN_WIDTH_PX = 24
 """Median tube width (px of the quick search's copy) above which its result stands: wide
 enough that walls, rim and round bottom are each several pixels (≈ 2.7 × the narrowest
 width looked for, :data:`MIN_TUBE_WIDTH_PX`)."""
