@@ -88,25 +88,6 @@ def gamut_clipped(pixels: np.ndarray, region) -> bool:
     return share > CLIPPED_SHARE
 
 
-def truth_region(t: dict):
-    """The studio's true tube geometry as a :class:`tubevision.tubes.TubeRegion`.
-
-    The bench measures in the true regions so that its figures are about calibration and
-    measurement, not about finding tubes or their meniscus (``bench_tubes.py`` does that).
-    """
-    from tubevision.tubes import TubeRegion
-
-    # TubeRegion's inner columns are the central third of the tube's width (the contract's
-    # measuring band); the truth's inner_col0/1 bound the whole inside of the glass.
-    half = (t["inner_col1"] - t["inner_col0"]) / 6.0
-    c0 = int(np.ceil(t["axis_col"] - half))
-    c1 = max(c0 + 1, int(np.floor(t["axis_col"] + half)) + 1)
-    return TubeRegion(index=t["index"], row=t["row"], bbox=tuple(t["bbox"]), axis_col=t["axis_col"],
-                      inner_col0=c0, inner_col1=c1, liquid_top=t["liquid_top"],
-                      liquid_bottom=t["liquid_bottom"], bottom_top=t["bottom_top"],
-                      inner_bottom=t["inner_bottom"], source="layout")
-
-
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="6 illuminants × 3 sensors at 1344×1008")
@@ -116,6 +97,7 @@ def main(argv=None) -> int:
     from tubevision.card import detect as card_detect
     from tubevision.card import fit as card_fit
     from tubevision.card.reference import load_card_reference
+    from tubevision.classify.train import truth_regions
     from tubevision.colorimetry import delta_e00
     from tubevision.image import load_photo
     from tubevision.measure import measure_tube
@@ -153,8 +135,9 @@ def main(argv=None) -> int:
             corr = card_fit.fit_card_correction(det, nominal)
             unc = card_fit.uncalibrated_correction()
             cal, raw_t, clipped = [], [], []
-            for t in rendered.truth["tubes"]:
-                region = truth_region(t)
+            # the true tube geometry (liquid top, central third), as the classifier's training
+            # measures it, so these figures are about calibration and measurement, not finding
+            for t, region in zip(rendered.truth["tubes"], truth_regions(rendered.truth)):
                 if t["lab"] is None:
                     continue
                 clipped.append(gamut_clipped(photo.pixels, region))

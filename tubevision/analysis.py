@@ -190,7 +190,7 @@ def analyze_photo(photo: Photo, options: AnalysisOptions = AnalysisOptions(), *,
     def scale_at(region):
         # the card's homography gives the scale at each tube's own bottom, not just at the
         # card (perspective changes it across the frame; see measure.mm_per_px_at)
-        if status != "card" or not hasattr(measure, "mm_per_px_at"):
+        if status != "card":
             return mm_per_px
         try:
             return measure.mm_per_px_at(detection.homography_mm_to_px, (region.axis_col, region.inner_bottom))

@@ -21,7 +21,7 @@ import numpy as np
 
 from .errors import TubevisionInputError
 
-__all__ = ["BAND_WIDTH_MM", "LIGHT_SRGB8", "DARK_SRGB8", "render_backdrop"]
+__all__ = ["BAND_WIDTH_MM", "LIGHT_SRGB8", "DARK_SRGB8", "render_backdrop", "write_backdrop"]
 
 BAND_WIDTH_MM = 4.0
 """Width of each light and each dark band (mm); the pattern's period is twice this.
@@ -84,3 +84,18 @@ def render_backdrop(width_mm: float, height_mm: float, dpi: float, *,
     dark = (np.floor(rows_mm / band_mm).astype(np.int64) % 2) == 1
     column = np.where(dark, DARK_SRGB8, LIGHT_SRGB8).astype(np.uint8)
     return np.ascontiguousarray(np.broadcast_to(column[:, None, None], (h, w, 3)))
+
+
+def write_backdrop(path, width_mm: float, height_mm: float, dpi: float, *, overwrite: bool = False):
+    """Write the banded backdrop to ``path`` (``.png`` or ``.pdf``) at its true size.
+
+    Raises
+    ------
+    TubevisionInputError
+        Sizes or resolution out of range (:func:`render_backdrop`), another extension, or
+        a file that exists and ``overwrite`` is False.
+    """
+    from .record.write import write_print_image
+
+    return write_print_image(path, render_backdrop(width_mm, height_mm, dpi), dpi,
+                             title="tubevision banded backdrop", overwrite=overwrite)

@@ -139,17 +139,25 @@ def _options(args, argv) -> "object":
         except UnicodeDecodeError:
             raise TubevisionInputError(f"--layout {layout_file}: not UTF-8 text") from None
         boxes = tuple(parse_layout(text, where=f"--layout {layout_file}"))
-    scheme = args.scheme
+    scheme = getattr(args, "scheme", None)
     if scheme and (Path(scheme).suffix or "/" in scheme):
         _existing_file(scheme, "--scheme")
     return AnalysisOptions(
         card_ref=_existing_file(args.card_ref, "--card-ref"), no_card=args.no_card,
         layout_boxes=boxes, layout_file=layout_file, expected_tubes=args.tubes,
-        scheme=scheme, step=args.step, labels=args.labels,
-        model=_existing_file(args.model, "--model"),
+        scheme=scheme, step=getattr(args, "step", None), labels=getattr(args, "labels", None),
+        model=_existing_file(getattr(args, "model", None), "--model"),
         turbidity_curve=_existing_file(getattr(args, "turbidity_curve", None), "--turbidity-curve"),
         command=tuple(["tubevision"] + list(argv)),
     )
+
+
+def _check_photo_path(photo_path: str) -> None:
+    p = Path(photo_path)
+    if not p.exists():
+        raise TubevisionInputError(f"{photo_path}: no such file")
+    if p.is_dir():
+        raise TubevisionInputError(f"{photo_path}: is a folder, not a photo")
 
 
 def _cmd_analyze(args, argv) -> int:
@@ -159,11 +167,7 @@ def _cmd_analyze(args, argv) -> int:
 
     options = _options(args, argv)
     for photo_path in args.photos:  # fail fast on paths before any work
-        p = Path(photo_path)
-        if not p.exists():
-            raise TubevisionInputError(f"{photo_path}: no such file")
-        if p.is_dir():
-            raise TubevisionInputError(f"{photo_path}: is a folder, not a photo")
+        _check_photo_path(photo_path)
     shared = load_shared(options)
     status = 0
     for photo_path in args.photos:
@@ -195,11 +199,8 @@ def _cmd_standards(args, argv) -> int:
     out = Path(args.out)
     if out.exists() and not args.overwrite:
         raise TubevisionInputError(f"{out}: already exists; pass --overwrite to replace it")
-    args.photos, args.json, args.scheme, args.step, args.labels, args.model = [args.photo], False, None, None, None, None
     options = _options(args, argv)
-    p = Path(args.photo)
-    if not p.is_file():
-        raise TubevisionInputError(f"{args.photo}: no such file" if not p.exists() else f"{args.photo}: not a file")
+    _check_photo_path(args.photo)
     analysis = analyze_photo(load_photo(args.photo), options)
     curve, rows = fit_standards_from_photo(analysis, values, unit=args.unit)
     atomic_write_text(out, curve_to_json(curve) + "\n", overwrite=args.overwrite)
@@ -299,29 +300,12 @@ def _paper_size(text: str) -> tuple[float, float]:
 
 
 def _cmd_backdrop(args) -> int:
-    import io
+    from .backdrop import BAND_WIDTH_MM, write_backdrop
 
-    from PIL import Image
-
-    from .backdrop import BAND_WIDTH_MM, render_backdrop
-    from .record.write import atomic_write_bytes
-
-    out = Path(args.out)
-    ext = out.suffix.lower()
-    if ext not in (".png", ".pdf"):
-        raise TubevisionInputError(f"backdrop --out {out}: write a .png or a .pdf file")
     if not 72 <= args.dpi <= 1200:
         raise TubevisionInputError(f"--dpi: expected 72 to 1200, got {args.dpi}")
-    if out.exists() and not args.overwrite:
-        raise TubevisionInputError(f"{out}: already exists; pass --overwrite to replace it")
     w_mm, h_mm = _paper_size(args.size)
-    im = Image.fromarray(render_backdrop(w_mm, h_mm, args.dpi))
-    buf = io.BytesIO()
-    if ext == ".png":
-        im.save(buf, "PNG", dpi=(args.dpi, args.dpi))
-    else:
-        im.save(buf, "PDF", resolution=float(args.dpi), title="tubevision banded backdrop")
-    atomic_write_bytes(out, buf.getvalue(), overwrite=args.overwrite)
+    out = write_backdrop(args.out, w_mm, h_mm, args.dpi, overwrite=args.overwrite)
     print(f"wrote {out} ({w_mm:g} x {h_mm:g} mm, bands {BAND_WIDTH_MM:g} mm)", file=sys.stderr)
     print("Print at 100 % (no scaling) on matte paper; set it up behind the rack with the bands "
           "horizontal.", file=sys.stderr)
@@ -358,6 +342,22 @@ def _cmd_demo(args) -> int:
     return 0
 
 
+_COMMANDS = {
+    "analyze": _cmd_analyze,
+    "standards": _cmd_standards,
+    "conclude": lambda args, argv: _cmd_conclude(args),
+    "card": lambda args, argv: _cmd_card(args),
+    "demo": lambda args, argv: _cmd_demo(args),
+    "verify": lambda args, argv: _cmd_verify(args),
+    "archive": lambda args, argv: _cmd_archive(args),
+    "backdrop": lambda args, argv: _cmd_backdrop(args),
+    "schemes": lambda args, argv: _cmd_schemes(args),
+    "train": lambda args, argv: _cmd_train(args),
+}
+"""Command name → handler(args, argv). ``tubevision train …`` is also handed over before
+parsing, so that its own parser (tubevision.classify.train) sees every option."""
+
+
 def main(argv: list[str] | None = None) -> int:
     """Run the command line; returns the exit status (0, 1 or 2)."""
     argv = list(sys.argv[1:] if argv is None else argv)
@@ -371,26 +371,9 @@ def main(argv: list[str] | None = None) -> int:
         if args.command is None:
             parser.print_help(sys.stderr)
             return 2
-        if args.command == "analyze":
-            return _cmd_analyze(args, argv)
-        if args.command == "standards":
-            return _cmd_standards(args, argv)
-        if args.command == "conclude":
-            return _cmd_conclude(args)
-        if args.command == "card":
-            return _cmd_card(args)
-        if args.command == "demo":
-            return _cmd_demo(args)
-        if args.command == "verify":
-            return _cmd_verify(args)
-        if args.command == "archive":
-            return _cmd_archive(args)
-        if args.command == "backdrop":
-            return _cmd_backdrop(args)
-        if args.command == "schemes":
-            return _cmd_schemes(args)
-        if args.command == "train":
-            return _cmd_train(args)
+        handler = _COMMANDS.get(args.command)
+        if handler is not None:
+            return handler(args, argv)
         raise TubevisionInputError(f"unknown command {args.command}")  # pragma: no cover
     except TubevisionInputError as exc:
         print(f"tubevision: error: {exc}", file=sys.stderr)

@@ -209,8 +209,9 @@ def uncalibrated_correction() -> CardCorrection:
                           coefficients=M_SRGB_TO_XYZ.T.copy(), calibrated=False)
 
 
-def _prepare(correction_or_parts, rgb: np.ndarray) -> np.ndarray:
-    gains, tone = correction_or_parts
+def _prepare(parts, rgb: np.ndarray) -> np.ndarray:
+    """Camera values through ``parts`` = (white gains, tone curves or None)."""
+    gains, tone = parts
     rgb = np.asarray(rgb, dtype=np.float64)
     return apply_tone_curves(tone, rgb) if tone is not None else rgb * gains
 

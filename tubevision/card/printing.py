@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import io
 from pathlib import Path
 
 from ..errors import TubevisionInputError
@@ -25,25 +24,17 @@ def write_card(path: str | Path, *, dpi: int = 300, overwrite: bool = False) -> 
     TubevisionInputError
         Another extension, or a file that exists and ``overwrite`` is False.
     """
-    from PIL import Image
-
-    from ..record.write import atomic_write_bytes, atomic_write_text
+    from ..record.write import atomic_write_text, write_print_image
 
     p = Path(path)
-    ext = p.suffix.lower()
-    if ext not in (".png", ".pdf"):
+    if p.suffix.lower() not in (".png", ".pdf"):
         raise TubevisionInputError(f"card --out {p}: write a .png or a .pdf file")
     cgats = p.with_name(p.stem + ".cgats.txt")
     for target in (p, cgats):
         if target.exists() and not overwrite:
             raise TubevisionInputError(f"{target}: already exists; pass --overwrite to replace it")
-    im = Image.fromarray(render_card(dpi))
-    buf = io.BytesIO()
     lay = card_layout()
-    if ext == ".png":
-        im.save(buf, "PNG", dpi=(dpi, dpi))
-    else:
-        im.save(buf, "PDF", resolution=float(dpi), title=f"tubevision card {lay.card_id} v{lay.version}")
-    atomic_write_bytes(p, buf.getvalue(), overwrite=overwrite)
+    write_print_image(p, render_card(dpi), dpi, title=f"tubevision card {lay.card_id} v{lay.version}",
+                      overwrite=overwrite)
     atomic_write_text(cgats, nominal_cgats_text(), overwrite=overwrite)
     return [p, cgats]

@@ -15,7 +15,7 @@ from pathlib import Path
 
 from ..errors import TubevisionInputError
 
-__all__ = ["atomic_write_bytes", "atomic_write_text", "write_folder"]
+__all__ = ["atomic_write_bytes", "atomic_write_text", "write_folder", "write_print_image"]
 
 
 def atomic_write_bytes(path: str | os.PathLike, data: bytes, *, overwrite: bool = False) -> Path:
@@ -55,6 +55,35 @@ def atomic_write_bytes(path: str | os.PathLike, data: bytes, *, overwrite: bool 
 def atomic_write_text(path: str | os.PathLike, text: str, *, overwrite: bool = False) -> Path:
     """:func:`atomic_write_bytes` for UTF-8 text."""
     return atomic_write_bytes(path, text.encode("utf-8"), overwrite=overwrite)
+
+
+def write_print_image(path: str | os.PathLike, rgb, dpi: float, *, title: str, overwrite: bool = False) -> Path:
+    """Write an sRGB image (H, W, 3 uint8) for printing at ``dpi``: ``.png`` with its
+    resolution (pHYs chunk) or ``.pdf`` with a page of exactly that size (Pillow writes the
+    page as pixels × 72 / dpi points), so it prints at true size at 100 % scale.
+
+    Raises
+    ------
+    TubevisionInputError
+        Another extension, or a file that exists and ``overwrite`` is False.
+    """
+    import io
+
+    from PIL import Image
+
+    p = Path(path)
+    ext = p.suffix.lower()
+    if ext not in (".png", ".pdf"):
+        raise TubevisionInputError(f"{p}: write a .png or a .pdf file")
+    if p.exists() and not overwrite:
+        raise TubevisionInputError(f"{p}: already exists; pass --overwrite to replace it")
+    buf = io.BytesIO()
+    im = Image.fromarray(rgb)
+    if ext == ".png":
+        im.save(buf, "PNG", dpi=(dpi, dpi))
+    else:
+        im.save(buf, "PDF", resolution=float(dpi), title=title)
+    return atomic_write_bytes(p, buf.getvalue(), overwrite=overwrite)
 
 
 def write_folder(target: str | os.PathLike, files: dict[str, bytes], *, overwrite: bool = False) -> Path:
