@@ -784,7 +784,8 @@ def measure_tube(pixels: np.ndarray, region, *, correction=None, mm_per_px: floa
     lab_sd = np.zeros(3)
     tau = dict(value=0.0, raw=0.0, sd=0.0, ratio=1.0, method="none")
     if not empty and n_good >= 3:
-        rgb = inner_rgb[good & _light_columns(inner_y, good)[None, :]]
+        sel = good & _light_columns(inner_y, good)[None, :]
+        rgb = inner_rgb[sel if sel.any() else good]
         n_eff = int(good.any(axis=1).sum())
         col_lab, lab_sd, lab_sem = _lab_stats(correction, rgb, n_eff)
         air = _air_ratio(win, inner_rgb, inner_clip, light_rows & ~occluded, beside_rgb, top - menisc)
@@ -851,16 +852,8 @@ def _light_columns(inner_y: np.ndarray, good: np.ndarray) -> np.ndarray:
     rows = good.any(axis=1)
     if rows.sum() < 3 or ncol < 3:
         return keep
-    with np.errstate(all="ignore"):
-        import warnings as _w
-
-        with _w.catch_warnings():
-            _w.simplefilter("ignore", RuntimeWarning)  # all-NaN columns
-            level = np.nanmedian(np.where(good[rows], inner_y[rows], np.nan), axis=0)
-    if not np.isfinite(level).any():
-        return keep
-    top = float(np.nanpercentile(level, 90))
-    keep = np.isfinite(level) & (level >= DARK_COLUMN_FRACTION * top)
+    level = np.median(inner_y[rows], axis=0)     # a highlight's few pixels do not move it
+    keep = level >= DARK_COLUMN_FRACTION * float(np.percentile(level, 90))
     if keep.sum() < 2:
         return np.ones(ncol, bool)
     return keep
