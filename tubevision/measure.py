@@ -852,8 +852,14 @@ def _light_columns(inner_y: np.ndarray, good: np.ndarray) -> np.ndarray:
     rows = good.any(axis=1)
     if rows.sum() < 3 or ncol < 3:
         return keep
-    level = np.median(inner_y[rows], axis=0)     # a highlight's few pixels do not move it
-    keep = level >= DARK_COLUMN_FRACTION * float(np.percentile(level, 90))
+    # column levels over the measured (non-highlight) pixels only: a specular streak runs
+    # down a few columns and would otherwise lift them above the rest
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # a column with no measured pixel
+        level = np.nanmedian(np.where(good[rows], inner_y[rows], np.nan), axis=0)
+    if not np.isfinite(level).any():
+        return keep
+    keep = np.isfinite(level) & (level >= DARK_COLUMN_FRACTION * float(np.nanpercentile(level, 90)))
     if keep.sum() < 2:
         return np.ones(ncol, bool)
     return keep
