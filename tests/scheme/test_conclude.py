@@ -229,3 +229,17 @@ def test_conclusion_schema_rejects_a_bad_call():
     out["samples"]["K-7"]["calls"]["Ag+"] = "maybe"
     with pytest.raises(TubevisionInputError, match="conclusion samples/K-7/calls/Ag\\+: 'maybe' is not one of"):
         validate_conclusion(out)
+
+
+def test_control_hidden_by_the_light_backdrop_says_to_photograph_again():
+    # The chloride step's control reads clear with its bottom in front of a light band only
+    # (measure: light_solid_hidden): the control did not pass, and the conclusion's failure
+    # text says to photograph again with a dark band behind the bottoms.
+    import dataclasses
+
+    hidden = dataclasses.replace(clear(0), light_solid_hidden=True)
+    recs = photo_records({"K-7": {"Ag+"}}, spoil={"chloride-precipitation": hidden})
+    out = conclude(recs)
+    assert out["controls"]["control"]["passed"] is False
+    assert any("photograph again with a dark band" in f for f in out["controls"]["control"]["failures"])
+    assert out["samples"]["K-7"]["calls"]["Pb2+"] != "absent"

@@ -80,6 +80,28 @@ def test_spoiled_control_flags_the_step_and_samples_become_inconclusive():
     assert j.record_block()["control_failures"][0]["label"] == "control"
 
 
+def test_control_whose_light_solid_could_not_show_blames_the_photo_not_the_reagent():
+    # The control reads clear, but its bottom sat in front of a light band only (measure's
+    # light_solid_hidden): the step still fails (exit 1, samples inconclusive), but the advice
+    # is to photograph again with a dark band behind the bottoms, not to suspect the reagent.
+    import dataclasses
+
+    hidden = dataclasses.replace(clear(0), light_solid_hidden=True)
+    j = judge_step(G1, "chloride-precipitation", [hidden, settled(1, *WHITE), clear(2)], LABELS3)
+    assert j.failed and j.control_failures[0].cause == "photo"
+    assert _verdicts(j)["unknown A"] == "inconclusive"
+    assert any("dark band behind the tube bottoms" in w for w in j.warnings)
+    assert not any("check the reagent" in w for w in j.warnings)
+    assert j.record_block()["control_failures"][0]["cause"] == "photo"
+    # without the flag, a clear control is the reagent's or technique's failure as before
+    j = judge_step(G1, "chloride-precipitation", [clear(0), settled(1, *WHITE), clear(2)], LABELS3)
+    assert j.control_failures[0].cause == "reagent or technique"
+    # a step whose positive is a dark solid (ammonia: grey-black) gains nothing from the flag
+    hidden = dataclasses.replace(clear(0), light_solid_hidden=True)
+    j = judge_step(G1, "ammonia-treatment", [hidden, settled(1, *BLACK), clear(2)], LABELS3)
+    assert j.failed and j.control_failures[0].cause == "reagent or technique"
+
+
 def test_cloudy_blank_fails_and_is_diagnosed():
     obs = [settled(0, *WHITE), clear(1), cloudy(2, turbidity=0.3)]
     j = judge_step(G1, "chloride-precipitation", obs, LABELS3)

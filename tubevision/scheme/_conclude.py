@@ -103,6 +103,14 @@ def _combine_step(entries: list[tuple[str | None, bool, str, str]]) -> tuple[str
     return "inconclusive", "; ".join(dict.fromkeys(meanings)) or "judged inconclusive"
 
 
+def _failure_text(step: str, where: str, f: dict) -> str:
+    """One control failure in words; a photo-caused one (``cause == "photo"``) says what to redo."""
+    text = f"{step} ({where}): expected {f.get('expected')}, {f.get('reason')}"
+    if f.get("cause") == "photo":
+        text += " (photograph again with a dark band behind the tube bottoms)"
+    return text
+
+
 def conclude(records: list[dict]) -> dict[str, Any]:
     """Combine the records of several steps of one scheme into calls per labelled sample.
 
@@ -165,14 +173,13 @@ def conclude(records: list[dict]) -> dict[str, Any]:
                     c["passed"] = False
                     for f in failures:
                         if f.get("position") == pos:
-                            c["failures"].append(f"{step} ({where}): expected {f.get('expected')}, "
-                                                 f"{f.get('reason')}")
+                            c["failures"].append(_failure_text(step, where, f))
         # A failure naming a tube with no label of its own still counts.
         for f in failures:
             lab = f.get("label") or f"T{f.get('position')}"
             if lab not in controls:
                 controls[lab] = {"role": f.get("role"), "passed": False, "steps": [step],
-                                 "failures": [f"{step} ({where}): expected {f.get('expected')}, {f.get('reason')}"]}
+                                 "failures": [_failure_text(step, where, f)]}
 
     samples: dict[str, Any] = {}
     verdict_table: dict[str, dict[str, str]] = {}

@@ -160,14 +160,20 @@ class ControlFailure:
     expected: str
     observed: str
     reason: str
+    cause: str = "reagent or technique"
+    """What most likely went wrong: ``"reagent or technique"``, or ``"photo"`` when the
+    control's expected light solid could not have shown against the light backdrop."""
 
     def __str__(self) -> str:
+        advice = ("photograph again with a dark band behind the tube bottoms before suspecting the reagent"
+                  if self.cause == "photo" else "check the reagent and the technique")
         return (f"{self.role} {self.label!r} (T{self.position}) did not show the expected "
-                f"{self.expected} ({self.reason}): check the reagent and the technique")
+                f"{self.expected} ({self.reason}): {advice}")
 
     def as_dict(self) -> dict:
         return {"position": self.position, "label": self.label, "role": self.role,
-                "expected": self.expected, "observed": self.observed, "reason": self.reason}
+                "expected": self.expected, "observed": self.observed, "reason": self.reason,
+                "cause": self.cause}
 
 
 @dataclass(frozen=True)
@@ -435,6 +441,20 @@ LIGHT_SOLID_MIN_L = 60.0
 like the light backdrop behind it (our threshold; the backdrop's light bands are L* ≈ 90)."""
 
 
+LIGHT_SOLID_WORDS = frozenset({"white", "yellow", "pink"})
+"""Colour words of solids that read like the light backdrop behind them (their L* is
+usually above :data:`LIGHT_SOLID_MIN_L`; common practice — white and pale yellow or pink
+precipitates are the ones a bench chemist holds against a dark card to see)."""
+
+
+def _expects_light_solid(cond: Condition) -> bool:
+    """Whether an expected appearance includes a light settled solid (any alternative)."""
+    if cond.pellet != "absent" and (set(cond.pellet_colours) & LIGHT_SOLID_WORDS
+                                    or (cond.min_pellet_lightness or 0.0) >= LIGHT_SOLID_MIN_L):
+        return True
+    return any(_expects_light_solid(c) for c in cond.any_of)
+
+
 def _control_solid_is_light(obs_list, roles) -> bool:
     """Whether a positive control in the photo shows a light settled solid."""
     for pos, role in roles.items():
@@ -513,8 +533,16 @@ def judge_step(scheme: Scheme, step: str, observations: Sequence[TubeObservation
         prelim[pos] = (verdict, why, q, diag)
         label = labels[pos]
         if role == "control" and verdict != "positive":
-            failures.append(ControlFailure(pos, label, role, "positive", verdict,
-                                           why or f"it shows the negative instead: {st.negative.meaning}"))
+            if (verdict == "negative" and obs.light_solid_hidden and not obs.pellet_present
+                    and _expects_light_solid(st.positive.condition)):
+                # Not evidence against the reagent: the photo could not have shown the solid.
+                failures.append(ControlFailure(
+                    pos, label, role, "positive", verdict,
+                    "no solid seen, but its bottom showed only the light backdrop, where the expected "
+                    "light solid would not show", cause="photo"))
+            else:
+                failures.append(ControlFailure(pos, label, role, "positive", verdict,
+                                               why or f"it shows the negative instead: {st.negative.meaning}"))
         elif role == "blank" and verdict != "negative":
             failures.append(ControlFailure(pos, label, role, "negative", verdict,
                                            why or f"it shows the positive instead: {st.positive.meaning}"))
