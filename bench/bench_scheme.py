@@ -178,13 +178,18 @@ def _have_card() -> bool:
 
 
 def photo_session(scheme, ions: set[str], seed: int, spoil_step: str | None = None, *,
-                  size=(1344, 1008), truth_boxes: bool = False):
+                  size=(1344, 1008), truth_boxes: bool = False, retake: bool = False):
     """One sample through the scheme on rendered photos and the pipeline.
 
     With the card stage present: ``analyze_photo`` → ``build_record`` (tubes
     found, or the truth boxes as a ``--layout`` when ``truth_boxes``). Without
     it: tubes from the truth boxes, measure uncalibrated (plain sRGB), classify,
     judge: the scheme stage on real measurements, the card left out.
+
+    With ``retake``, the analyst follows the tool's advice once: where a step's judgement
+    asks for a new photo with a dark band behind the tube bottoms
+    (``StepJudgement.retake_positions``), the same scene is photographed again with the
+    rack moved by one band (``band_shift_mm = band_mm``), and that photo's record is used.
     """
     from tubevision.image import photo_from_array
     from tubevision.studio import SceneSpec, TubeSpec, render_scene
@@ -202,6 +207,8 @@ def photo_session(scheme, ions: set[str], seed: int, spoil_step: str | None = No
         photo = render_scene(spec, seed=seed * 10 + k)
         boxes = tuple(tuple(int(v) for v in tb["bbox"]) for tb in photo.truth["tubes"])
         if full:
+            from dataclasses import replace
+
             from tubevision.analysis import AnalysisOptions, analyze_photo
             from tubevision.record.build import build_record
 
@@ -209,6 +216,12 @@ def photo_session(scheme, ions: set[str], seed: int, spoil_step: str | None = No
                                    layout_boxes=boxes if truth_boxes else None)
             try:
                 a = analyze_photo(photo_from_array(photo.upright, name=f"{step}.png"), opts, scheme=scheme)
+                if retake and a.judgement.retake_positions:
+                    photo = render_scene(replace(spec, band_shift_mm=spec.band_mm), seed=seed * 10 + k)
+                    boxes = tuple(tuple(int(v) for v in tb["bbox"]) for tb in photo.truth["tubes"])
+                    opts = replace(opts, layout_boxes=boxes if truth_boxes else None)
+                    a = analyze_photo(photo_from_array(photo.upright, name=f"{step}-again.png"), opts,
+                                      scheme=scheme)
             except TubevisionInputError:  # fewer tubes found than labelled: this step is lost
                 flagged[step] = True
                 continue
@@ -234,14 +247,22 @@ def photo_session(scheme, ions: set[str], seed: int, spoil_step: str | None = No
 
 
 def photo_bench(scheme, subsets, n: int, seed: int, truth_boxes: bool) -> None:
+    for retake in (False, True):
+        _photo_pass(scheme, subsets, n, seed, truth_boxes, retake)
+
+
+def _photo_pass(scheme, subsets, n: int, seed: int, truth_boxes: bool, retake: bool) -> None:
     t0 = time.perf_counter()
     how = ("analyze_photo + build_record" + (", truth boxes as layout" if truth_boxes else ", tubes found")
            if _have_card() else "no card stage yet: truth boxes, uncalibrated measure + classify + judge_step")
+    how += ("; a step whose judgement asks for it photographed again once, rack moved by one band"
+            if retake else "; one photo per step")
     print(f"  photos ({how}):")
     calls = correct = wrong = inconc = false_flags = photo_flags = 0
     for s_i, ions in enumerate(subsets):
         for r in range(n):
-            out, flagged = photo_session(scheme, ions, seed + 1000 * s_i + r, truth_boxes=truth_boxes)
+            out, flagged = photo_session(scheme, ions, seed + 1000 * s_i + r, truth_boxes=truth_boxes,
+                                         retake=retake)
             false_flags += sum(bool(v) for v in flagged.values())
             photo_flags += sum(isinstance(v, tuple) and "photo" in v for v in flagged.values())
             for ion, call in out["samples"]["sample"]["calls"].items():
@@ -258,7 +279,7 @@ def photo_bench(scheme, subsets, n: int, seed: int, truth_boxes: bool) -> None:
     for k, step in enumerate(STEPS):
         for r in range(n):
             _, flagged = photo_session(scheme, set(GROUP1), seed + 50000 + 100 * k + r, spoil_step=step,
-                                       truth_boxes=truth_boxes)
+                                       truth_boxes=truth_boxes, retake=retake)
             n_sp += 1
             n_flag += bool(flagged[step])
     print(f"    spoiled controls {n_sp}; flagged {n_flag} ({100 * n_flag / n_sp:.1f} %, target 100 %); "

@@ -421,7 +421,8 @@ class PelletMeasurement:
     on the axis from the inside bottom; ``lab``/``lab_sd`` CIELAB D65 of the solid.
     ``light_solid_hidden`` (when none is found): the lowest rows, where a thin solid would
     sit, see only the light backdrop, so a white solid there could not be told apart from
-    it (an opaque white layer reads like the liquid over white)."""
+    it (an opaque white layer reads like the liquid over white). ``dark_solid_hidden``
+    likewise: those rows see only a dark band, where a black solid would not show."""
 
     present: bool
     height_mm: float | None = None
@@ -432,6 +433,7 @@ class PelletMeasurement:
     height_px: float = 0.0
     contrast_de00: float = 0.0
     light_solid_hidden: bool = False
+    dark_solid_hidden: bool = False
 
 
 @dataclass(frozen=True)
@@ -1087,13 +1089,16 @@ for a 16 mm tube)."""
 
 
 def _no_solid(cls_dark: np.ndarray, last_judged: int, width: float, mm_per_px, banded: bool):
-    """No solid found; say whether a white one could hide against a light band (see
-    :class:`PelletMeasurement`): common practice is to look at a white precipitate against
-    a dark background, and no row of the zone here has one."""
+    """No solid found; say whether a white one could hide against a light band, or a black
+    one against a dark band (see :class:`PelletMeasurement`): common practice is to look at
+    a white precipitate against a dark background and a dark one against a light one, and
+    the zone here has no row of the one kind (light: plain backdrops too) or only dark ones."""
     zone = (HIDDEN_SOLID_ZONE_MM / mm_per_px if mm_per_px else HIDDEN_SOLID_ZONE_FRACTION * width)
     lo = max(0, int(last_judged - max(2, round(zone))))
-    dark_seen = bool(banded and cls_dark[lo:max(lo + 1, last_judged)].any())
-    return PelletMeasurement(present=False, light_solid_hidden=not dark_seen)
+    z = cls_dark[lo:max(lo + 1, last_judged)]
+    dark_seen = bool(banded and z.any())
+    only_dark = bool(banded and z.size and z.all())
+    return PelletMeasurement(present=False, light_solid_hidden=not dark_seen, dark_solid_hidden=only_dark)
 
 
 def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_rows, banded, beside_y,

@@ -361,3 +361,17 @@ def test_no_solid_says_when_a_white_solid_could_hide_against_a_light_band():
     dark[60] = True                                                          # 3 mm up: too high
     assert _no_solid(dark, 90, 60.0, 0.1, True).light_solid_hidden
     assert _no_solid(np.ones(100, bool), 90, 60.0, 0.1, False).light_solid_hidden   # plain backdrop
+
+
+def test_no_solid_says_when_a_black_solid_could_hide_against_a_dark_band():
+    # the mirror case: a black solid reads like a dark band; a light row near the bottom shows it
+    from tubevision.measure import _no_solid
+
+    dark = np.zeros(100, bool)
+    dark[70:] = True                                                         # bottom 2 mm+ all dark
+    m = _no_solid(dark, 90, 60.0, 0.1, True)
+    assert m.dark_solid_hidden and not m.light_solid_hidden
+    dark[88] = False                                                         # one light row 0.2 mm up
+    assert not _no_solid(dark, 90, 60.0, 0.1, True).dark_solid_hidden
+    assert not _no_solid(np.zeros(100, bool), 90, 60.0, 0.1, True).dark_solid_hidden   # all light
+    assert not _no_solid(np.ones(100, bool), 90, 60.0, 0.1, False).dark_solid_hidden   # plain backdrop

@@ -58,6 +58,7 @@ def test_no_solid_seen_where_a_light_one_could_hide_is_inconclusive_not_negative
     j = judge_step(G1, "chloride-precipitation", [settled(0, *WHITE), hidden, clear(2)], LABELS3)
     assert _verdicts(j) == {"control": "positive", "unknown A": "inconclusive", "blank": "negative"}
     assert "light backdrop" in j.outcome_for(1)["meaning"]
+    assert any("T2 has its bottom in front of a light band" in w for w in j.warnings)
     # a dark control solid would show against the light band: that reason does not apply
     j = judge_step(G1, "chloride-precipitation", [settled(0, *BLACK), hidden, clear(2)], LABELS3)
     assert "light backdrop" not in j.outcome_for(1)["meaning"]
@@ -100,6 +101,17 @@ def test_control_whose_light_solid_could_not_show_blames_the_photo_not_the_reage
     hidden = dataclasses.replace(clear(0), light_solid_hidden=True)
     j = judge_step(G1, "ammonia-treatment", [hidden, settled(1, *BLACK), clear(2)], LABELS3)
     assert j.failed and j.control_failures[0].cause == "reagent or technique"
+    # ... but a bottom in front of a dark band only hides the black solid it looks for: the
+    # advice is then a light band, and a sample's "no solid" there is inconclusive
+    dark = dataclasses.replace(clear(0), dark_solid_hidden=True)
+    j = judge_step(G1, "ammonia-treatment", [dark, settled(1, *BLACK), clear(2)], LABELS3)
+    assert j.control_failures[0].cause == "photo" and "light band" in j.control_failures[0].advice
+    assert j.retake_positions == (1,)
+    j = judge_step(G1, "ammonia-treatment", [settled(0, *BLACK), dataclasses.replace(clear(1), dark_solid_hidden=True),
+                                              clear(2)], LABELS3)
+    assert _verdicts(j)["unknown A"] == "inconclusive" and not j.failed
+    assert "dark band" in j.outcome_for(1)["meaning"]
+    assert j.retake_positions == (2,)
 
 
 def test_cloudy_blank_fails_and_is_diagnosed():

@@ -148,6 +148,8 @@ def _tube(analysis, i: int) -> dict[str, Any]:
     }
     if not p.present and getattr(p, "light_solid_hidden", False):
         pellet["light_solid_hidden"] = True
+    if not p.present and getattr(p, "dark_solid_hidden", False):
+        pellet["dark_solid_hidden"] = True
     if p.present:
         pellet["height_mm_sd"] = _num(getattr(p, "height_mm_sd", None), 2)
         pellet["lab_sd"] = _vec(getattr(p, "lab_sd", None))

@@ -107,7 +107,7 @@ def _failure_text(step: str, where: str, f: dict) -> str:
     """One control failure in words; a photo-caused one (``cause == "photo"``) says what to redo."""
     text = f"{step} ({where}): expected {f.get('expected')}, {f.get('reason')}"
     if f.get("cause") == "photo":
-        text += " (photograph again with a dark band behind the tube bottoms)"
+        text += f" ({f.get('advice') or 'photograph again with the other band behind the tube bottoms'})"
     return text
 
 

@@ -74,6 +74,8 @@ class TubeObservation:
     turbidity_sd : float or None — standard uncertainty of ``turbidity``, if known.
     light_solid_hidden : bool — no solid found, but the bottom showed only the light
         backdrop, where a white solid would not show (measure stage).
+    dark_solid_hidden : bool — no solid found, but the bottom showed only a dark band,
+        where a black solid would not show (measure stage).
     """
 
     index: int
@@ -88,6 +90,7 @@ class TubeObservation:
     pellet_colour_name: str | None
     turbidity_sd: float | None = None
     light_solid_hidden: bool = False
+    dark_solid_hidden: bool = False
 
 
 def _lab_or_none(v) -> tuple[float, float, float] | None:
@@ -130,6 +133,7 @@ def observation_from(measurement: Any, call: Any) -> TubeObservation:
         pellet_colour_name=getattr(call, "pellet_colour_name", None) if present else None,
         turbidity_sd=_num_or_none(getattr(liq, "turbidity_sd", None)) if liq is not None else None,
         light_solid_hidden=bool(getattr(pel, "light_solid_hidden", False)) and not present,
+        dark_solid_hidden=bool(getattr(pel, "dark_solid_hidden", False)) and not present,
     )
 
 
@@ -147,6 +151,7 @@ def observation_from_record(tube: dict) -> TubeObservation:
         pellet_colour_name=pel.get("colour_name") if present else None,
         turbidity_sd=_num_or_none(liq.get("turbidity_sd")),
         light_solid_hidden=bool(pel.get("light_solid_hidden", False)) and not present,
+        dark_solid_hidden=bool(pel.get("dark_solid_hidden", False)) and not present,
     )
 
 
@@ -162,18 +167,20 @@ class ControlFailure:
     reason: str
     cause: str = "reagent or technique"
     """What most likely went wrong: ``"reagent or technique"``, or ``"photo"`` when the
-    control's expected light solid could not have shown against the light backdrop."""
+    control's expected solid could not have shown against the band behind its bottom."""
+    advice: str = ""
+    """For ``cause == "photo"``: what to do (which band to put behind the bottoms)."""
 
     def __str__(self) -> str:
-        advice = ("photograph again with a dark band behind the tube bottoms before suspecting the reagent"
-                  if self.cause == "photo" else "check the reagent and the technique")
+        advice = (f"{self.advice} before suspecting the reagent" if self.cause == "photo"
+                  else "check the reagent and the technique")
         return (f"{self.role} {self.label!r} (T{self.position}) did not show the expected "
                 f"{self.expected} ({self.reason}): {advice}")
 
     def as_dict(self) -> dict:
         return {"position": self.position, "label": self.label, "role": self.role,
                 "expected": self.expected, "observed": self.observed, "reason": self.reason,
-                "cause": self.cause}
+                "cause": self.cause, **({"advice": self.advice} if self.advice else {})}
 
 
 @dataclass(frozen=True)
@@ -220,6 +227,10 @@ class StepJudgement:
     control_failures: tuple[ControlFailure, ...] = ()
     warnings: tuple[str, ...] = ()
     step_info: dict = field(default_factory=dict, compare=False)
+    retake_positions: tuple[int, ...] = ()
+    """1-based positions of labelled tubes whose bottoms showed only the band that would hide
+    the solid this step looks for (light for a white solid, dark for a black one): photograph
+    again with the other band behind them."""
 
     @property
     def failed(self) -> bool:
@@ -447,21 +458,46 @@ usually above :data:`LIGHT_SOLID_MIN_L`; common practice — white and pale yell
 precipitates are the ones a bench chemist holds against a dark card to see)."""
 
 
-def _expects_light_solid(cond: Condition) -> bool:
-    """Whether an expected appearance includes a light settled solid (any alternative)."""
-    if cond.pellet != "absent" and (set(cond.pellet_colours) & LIGHT_SOLID_WORDS
-                                    or (cond.min_pellet_lightness or 0.0) >= LIGHT_SOLID_MIN_L):
+DARK_SOLID_MAX_L = 40.0
+"""L* below which a settled solid counts as dark (black, grey-black): one that reads like a
+dark band behind it (our threshold; the backdrop's dark bands are L* ≈ 25-35)."""
+DARK_SOLID_WORDS = frozenset({"black", "grey"})
+"""Colour words of solids that read like a dark band behind them (common practice: a black
+or grey-black precipitate is looked at against a white card)."""
+
+_HIDING = {
+    # kind: (words, test on a scheme's lightness bounds, test on a measured L*, band to use)
+    "light": (LIGHT_SOLID_WORDS, lambda c: (c.min_pellet_lightness or 0.0) >= LIGHT_SOLID_MIN_L,
+              lambda L: L >= LIGHT_SOLID_MIN_L, "dark"),
+    "dark": (DARK_SOLID_WORDS, lambda c: c.max_pellet_lightness is not None and c.max_pellet_lightness <= DARK_SOLID_MAX_L,
+             lambda L: L <= DARK_SOLID_MAX_L, "light"),
+}
+
+
+def _expects_solid(cond: Condition, kind: str) -> bool:
+    """Whether an expected appearance includes a ``kind`` ("light"/"dark") settled solid."""
+    words, bound, _, _ = _HIDING[kind]
+    if cond.pellet != "absent" and (set(cond.pellet_colours) & words or bound(cond)):
         return True
-    return any(_expects_light_solid(c) for c in cond.any_of)
+    return any(_expects_solid(c, kind) for c in cond.any_of)
 
 
-def _control_solid_is_light(obs_list, roles) -> bool:
-    """Whether a positive control in the photo shows a light settled solid."""
+def _hidden(obs: TubeObservation, kind: str) -> bool:
+    return not obs.pellet_present and (obs.light_solid_hidden if kind == "light" else obs.dark_solid_hidden)
+
+
+def _control_solid_is(obs_list, roles, kind: str) -> bool:
+    """Whether a positive control in the photo shows a ``kind`` ("light"/"dark") settled solid."""
+    is_kind = _HIDING[kind][2]
     for pos, role in roles.items():
         o = obs_list[pos - 1]
-        if role == "control" and o.pellet_present and o.pellet_lab is not None and o.pellet_lab[0] >= LIGHT_SOLID_MIN_L:
+        if role == "control" and o.pellet_present and o.pellet_lab is not None and is_kind(o.pellet_lab[0]):
             return True
     return False
+
+
+def _band_advice(kind: str) -> str:
+    return f"photograph again with a {_HIDING[kind][3]} band behind the tube bottoms"
 
 
 def judge_step(scheme: Scheme, step: str, observations: Sequence[TubeObservation],
@@ -533,13 +569,14 @@ def judge_step(scheme: Scheme, step: str, observations: Sequence[TubeObservation
         prelim[pos] = (verdict, why, q, diag)
         label = labels[pos]
         if role == "control" and verdict != "positive":
-            if (verdict == "negative" and obs.light_solid_hidden and not obs.pellet_present
-                    and _expects_light_solid(st.positive.condition)):
+            kind = next((k for k in _HIDING if _hidden(obs, k) and _expects_solid(st.positive.condition, k)), None)
+            if verdict == "negative" and kind is not None:
                 # Not evidence against the reagent: the photo could not have shown the solid.
+                behind = "the light backdrop" if kind == "light" else "a dark band"
                 failures.append(ControlFailure(
                     pos, label, role, "positive", verdict,
-                    "no solid seen, but its bottom showed only the light backdrop, where the expected "
-                    "light solid would not show", cause="photo"))
+                    f"no solid seen, but its bottom showed only {behind}, where the expected "
+                    f"{kind} solid would not show", cause="photo", advice=_band_advice(kind)))
             else:
                 failures.append(ControlFailure(pos, label, role, "positive", verdict,
                                                why or f"it shows the negative instead: {st.negative.meaning}"))
@@ -570,10 +607,14 @@ def judge_step(scheme: Scheme, step: str, observations: Sequence[TubeObservation
                 elif verdict == "negative" and pv > hi:
                     verdict, why = "inconclusive", (f"matches the expected negative but lies nearer the positive "
                                                     f"control (position {pv:.2f})")
-            if verdict == "negative" and obs.light_solid_hidden and _control_solid_is_light(obs_list, roles):
+            if verdict == "negative" and _hidden(obs, "light") and _control_solid_is(obs_list, roles, "light"):
                 verdict, why = "inconclusive", ("no solid seen, but this tube's bottom showed only the light "
                                                 "backdrop, where a light solid like the positive control's "
                                                 "would not show (place a dark band behind the bottoms)")
+            elif verdict == "negative" and _hidden(obs, "dark") and _control_solid_is(obs_list, roles, "dark"):
+                verdict, why = "inconclusive", ("no solid seen, but this tube's bottom showed only a dark band, "
+                                                "where a dark solid like the positive control's would not show "
+                                                "(place a light band behind the bottoms)")
             if failures and verdict != "inconclusive":
                 why = f"{verdict} by appearance, but the controls failed at this step"
                 verdict = "inconclusive"
@@ -600,12 +641,25 @@ def judge_step(scheme: Scheme, step: str, observations: Sequence[TubeObservation
                                     label=label, role=role, verdict=verdict, meaning=meaning,
                                     evidence=_evidence(obs, q), confidence=obs.confidence,
                                     quantities=q, warnings=tuple(diag)))
+    retake: set[int] = set()
+    for kind in _HIDING:
+        if not _expects_solid(st.positive.condition, kind):
+            continue
+        hidden = [pos for pos in sorted(prelim) if _hidden(obs_list[pos - 1], kind)]
+        if hidden:
+            retake.update(hidden)
+            warnings.append(f"{where}: " + ", ".join(f"T{p}" for p in hidden)
+                            + (" has its bottom" if len(hidden) == 1 else " have their bottoms")
+                            + f" in front of a {'light' if kind == 'light' else 'dark'} band only, where the "
+                              f"{kind} solid this step looks for would not show: move the rack so a "
+                              f"{_HIDING[kind][3]} band is behind the bottoms and photograph again")
     for f in failures:
         warnings.append(f"{where}: {f}")
     summary = scheme_summary(scheme)
     return StepJudgement(scheme_name=scheme.name, scheme_source=summary["source"], scheme_file=summary["file"],
                          scheme_sha256=scheme.sha256, step=st.name, outcomes=tuple(outcomes),
                          control_failures=tuple(failures), warnings=tuple(dict.fromkeys(warnings)),
+                         retake_positions=tuple(sorted(retake)),
                          step_info={"title": st.title, "reagent": st.reagent, "fraction": st.fraction,
                                     "source": st.source, "reactions": list(st.reactions),
                                     "hazards": list(st.hazards), "safety": " ".join(scheme.safety.split())})

@@ -143,6 +143,9 @@ class SceneSpec:
     backdrop : str — one of :data:`BACKDROPS`.
     band_mm : float — band width of a banded backdrop (mm); default the printable backdrop's
         (:data:`tubevision.backdrop.BAND_WIDTH_MM`).
+    band_shift_mm : float — the backdrop moved by this much against the rack, on top of the
+        seed's random phase (a re-take with the rack moved by one band: ``band_shift_mm=band_mm``
+        and the same seed swaps light and dark bands behind everything, the rest unchanged).
     light_gradient : (float, float) — relative change of the illumination across the whole
         frame, left→right and top→bottom (e.g. 0.1 = 10 % brighter on the right); 0 = even light.
     rack : bool — draw the rack (front bar, posts, base).
@@ -166,6 +169,7 @@ class SceneSpec:
     camera: CameraSpec = field(default_factory=CameraSpec)
     backdrop: str = "plain"
     band_mm: float = BAND_WIDTH_MM
+    band_shift_mm: float = 0.0
     rack: bool = True
     rack_colour: str = "white"
     card: str = "auto"
@@ -244,6 +248,8 @@ def _validate(spec: SceneSpec) -> list[mat.Contents]:
         raise TubevisionInputError(f"rack_colour {spec.rack_colour!r}: choose one of {', '.join(RACK_MATERIALS)}")
     if not 1.0 <= spec.band_mm <= 20.0:
         raise TubevisionInputError(f"band_mm {spec.band_mm}: give 1-20 mm")
+    if not (np.isfinite(spec.band_shift_mm) and abs(spec.band_shift_mm) <= 100.0):
+        raise TubevisionInputError(f"band_shift_mm {spec.band_shift_mm}: give -100..100 mm")
     out = []
     inner_len = spec.tube_length_mm - 2 * TUBE_WALL_MM
     for i, t in enumerate(spec.tubes):
@@ -585,7 +591,7 @@ def render_scene(spec: SceneSpec, *, seed: int) -> RenderedPhoto:
     h, w = spec.height_px, spec.width_px
 
     raw = np.empty((h, w, 3), np.float32)
-    backdrop = _Backdrop(spec, white_raw, float(rng.uniform(0.0, 2.0 * spec.band_mm)))
+    backdrop = _Backdrop(spec, white_raw, float(rng.uniform(0.0, 2.0 * spec.band_mm)) + spec.band_shift_mm)
     backdrop.fill(raw, ppm)
 
     geoms = []
@@ -730,6 +736,7 @@ def _truth(spec, contents_list, geoms, lay, bars, hmat, card_truth, seed, dev) -
         "conditions": {
             "illuminant": spec.illuminant, "sensor": cam.sensor, "seed": int(seed),
             "exif_orientation": spec.exif_orientation, "backdrop": spec.backdrop, "band_mm": spec.band_mm,
+            "band_shift_mm": float(spec.band_shift_mm),
             "rack": spec.rack, "rows": spec.rows, "scenario": spec.scenario,
             "light_gradient": [float(v) for v in spec.light_gradient],
             "card_angle_deg": float(spec.card_angle_deg),
