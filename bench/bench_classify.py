@@ -137,6 +137,10 @@ def main(argv=None) -> int:
         print("  most frequent misses (truth -> called): "
               + ", ".join(f"{a}->{b} {k}" for (a, b), k in misses.most_common(8)))
     if args.misses:
+        for r in wrong:
+            print(f"    miss state  {r['contents']:22s} {r['state']:8s}->{r['called']:8s} "
+                  f"confidence {r['confidence']:.2f} warned {r['warned']} {r['illuminant']}/{r['sensor']} "
+                  f"{r['backdrop']}")
         for r in liq + [r for r in rows if r["pellet_colour"]]:
             for kind, truth, called, lab in (("liquid", r["colour"], r["colour_called"], r["lab"]),
                                              ("pellet", r["pellet_colour"], r["pellet_called"], r["pellet_lab"])):
