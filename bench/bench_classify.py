@@ -141,7 +141,7 @@ def main(argv=None) -> int:
             print(f"    miss state  {r['contents']:22s} {r['state']:8s}->{r['called']:8s} "
                   f"confidence {r['confidence']:.2f} warned {r['warned']} {r['illuminant']}/{r['sensor']} "
                   f"{r['backdrop']}")
-        for r in liq + [r for r in rows if r["pellet_colour"]]:
+        for r in [r for r in rows if r in liq or r["pellet_colour"]]:
             for kind, truth, called, lab in (("liquid", r["colour"], r["colour_called"], r["lab"]),
                                              ("pellet", r["pellet_colour"], r["pellet_called"], r["pellet_lab"])):
                 if truth and called != truth:

@@ -16,6 +16,12 @@ pink and brown follow the ISCC-NBS colour-name blocks [3]_ as we recall their
 extent (from memory) and are checked against the Munsell renotation data in
 ``tests/classify/test_naming.py``.
 
+A cloudy liquid is named as a solid (``solid=True``; see
+:func:`tubevision.classify.calls.classify_tube`): the contract keeps
+``colourless`` for a clear liquid and never gives it to a solid, and a chemist
+writes a faint white cloud as "faint white turbidity", so its word is
+``white`` however faint it is; how faint it is, is the turbidity's business.
+
 References
 ----------
 .. [1] CIE 015:2018, Colorimetry, 4th edition. CIE, Vienna.
