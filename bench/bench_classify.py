@@ -31,6 +31,24 @@ STATE_TARGET = 0.97
 COLOUR_TARGET = 0.95
 
 
+def contract_word(state: str, studio_word: str) -> str:
+    """The truth's liquid word as the contract reads it.
+
+    The contract (shared/contract.md, vocabulary) keeps ``colourless`` for a
+    *clear* liquid with no noticeable colour and never gives it to a solid; a
+    cloudy liquid is seen by the light its suspended solid scatters, and a
+    chemist writes "faint white turbidity", not "colourless". The studio's
+    faint white cloud carries ``colourless``; scored here as ``white``.
+    """
+    return "white" if state == "cloudy" and studio_word == "colourless" else studio_word
+
+
+def _lab(part):
+    """A measured part's CIELAB as a rounded list (None where absent)."""
+    lab = getattr(part, "lab", None) if part is not None else None
+    return None if lab is None else [round(float(v), 1) for v in lab]
+
+
 def _photo_job(args):
     """Render, measure and classify one bench photo; plain dicts per tube."""
     k, seed, model_path, geometry = args
@@ -51,6 +69,7 @@ def _photo_job(args):
             "method": c.method, "rule": rule_state(m)[0],
             "colour": (t.get("liquid") or {}).get("colour_name"), "colour_called": c.liquid_colour_name,
             "pellet_colour": (t.get("pellet") or {}).get("colour_name"), "pellet_called": c.pellet_colour_name,
+            "lab": _lab(getattr(m, "liquid", None)), "pellet_lab": _lab(getattr(m, "pellet", None)),
         })
     return out
 
@@ -64,6 +83,7 @@ def main(argv=None) -> int:
     ap.add_argument("--seed", type=int, default=TRAIN_SEED)
     ap.add_argument("--model", default=None, help="model JSON (default: the shipped one)")
     ap.add_argument("--jobs", type=int, default=2)
+    ap.add_argument("--misses", action="store_true", help="list every wrong colour word with its measured Lab")
     ap.add_argument("--geometry", default="truth", choices=("truth", "no-meniscus", "box-top"),
                     help="liquid top given to measure: the truth (default), none (a missed meniscus), "
                          "or the box top (what --layout boxes give)")
@@ -102,19 +122,31 @@ def main(argv=None) -> int:
               f"{sum(r['warned'] for r in right)} of {len(right)}")
 
     liq = [r for r in rows if r["state"] != "empty" and r["colour"]]
-    ok = [r["colour_called"] == r["colour"] for r in liq]
-    acc = sum(ok) / len(ok) if ok else float("nan")
-    conv = [r for r in liq if r["state"] == "cloudy" and r["colour"] == "colourless"]
-    ok2 = [r["colour_called"] == r["colour"] or (r in conv and r["colour_called"] == "white") for r in liq]
-    acc2 = sum(ok2) / len(ok2) if ok2 else float("nan")
+    for r in liq:
+        r["colour_studio"] = r["colour"]
+        r["colour"] = contract_word(r["state"], r["colour"])
+    acc = sum(r["colour_called"] == r["colour"] for r in liq) / len(liq) if liq else float("nan")
+    conv = [r for r in liq if r["colour"] != r["colour_studio"]]
+    acc_studio = (sum(r["colour_called"] == r["colour_studio"] for r in liq) / len(liq)) if liq else float("nan")
     print()
-    print(f"liquid colour-word accuracy {acc:.4f} (n = {len(liq)}; truth words as the studio writes them)")
-    print(f"  counting 'white' as right for the {len(conv)} cloudy tubes the studio calls colourless "
-          f"(contract: a suspension is named as its solid): {acc2:.4f}")
+    print(f"liquid colour-word accuracy {acc:.4f} (n = {len(liq)}; truth words by the contract: a cloudy "
+          f"liquid is named as its solid)")
+    print(f"  with the studio's own words ('colourless' for the {len(conv)} faint white clouds): {acc_studio:.4f}")
     misses = collections.Counter((r["colour"], r["colour_called"]) for r in liq if r["colour_called"] != r["colour"])
     if misses:
         print("  most frequent misses (truth -> called): "
               + ", ".join(f"{a}->{b} {k}" for (a, b), k in misses.most_common(8)))
+    if args.misses:
+        for r in wrong:
+            print(f"    miss state  {r['contents']:22s} {r['state']:8s}->{r['called']:8s} "
+                  f"confidence {r['confidence']:.2f} warned {r['warned']} {r['illuminant']}/{r['sensor']} "
+                  f"{r['backdrop']}")
+        for r in [r for r in rows if r in liq or r["pellet_colour"]]:
+            for kind, truth, called, lab in (("liquid", r["colour"], r["colour_called"], r["lab"]),
+                                             ("pellet", r["pellet_colour"], r["pellet_called"], r["pellet_lab"])):
+                if truth and called != truth:
+                    print(f"    miss {kind:6s} {r['contents']:22s} {r['state']:8s}->{r['called']:8s} "
+                          f"{truth}->{called} Lab {lab} {r['illuminant']}/{r['sensor']} {r['backdrop']}")
     pel = [r for r in rows if r["pellet_colour"]]
     if pel:
         pacc = sum(r["pellet_called"] == r["pellet_colour"] for r in pel) / len(pel)

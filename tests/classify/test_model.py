@@ -175,3 +175,19 @@ def test_bad_model_arrays(tmp_path, toy_model):
         load_model(p)
     with pytest.raises(TubevisionInputError, match="not found"):
         load_model(tmp_path / "missing.json")
+
+
+def test_low_confidence_calls_always_warn(toy_model):
+    """Synthetic (kind 2): across the clear/cloudy/settled corner every call whose top vote
+    share is under LOW_CONFIDENCE carries a warning, and a confident call carries none."""
+    from tubevision.classify.calls import CLOSE_MARGIN, LOW_CONFIDENCE
+
+    low = 0
+    for t in np.linspace(0.15, 0.45, 31):
+        for h in (0.0, 0.9, 1.0, 1.1, 2.0):
+            c = classify_tube(_measurement(tau=float(t), h=float(h)), model=toy_model)
+            p = sorted(c.state_probabilities.values(), reverse=True)
+            state_warned = any("close between" in w or "state uncertain" in w for w in c.warnings)
+            assert state_warned is (p[0] < LOW_CONFIDENCE or p[0] - p[1] < CLOSE_MARGIN)
+            low += p[0] < LOW_CONFIDENCE
+    assert low >= 1

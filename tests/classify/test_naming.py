@@ -161,6 +161,19 @@ def test_munsell_neutrals(value, solid_word, liquid_word):
     assert colour_name(lab) == liquid_word
 
 
+@pytest.mark.parametrize(("value", "word"), [(1.0, "black"), (2.0, "black"), (2.4, "black"),
+                                             (3.7, "grey"), (5.0, "grey")])
+def test_neutral_solid_seen_through_glass(value, word):
+    """Published values (kind 1): a neutral chip (Y by ASTM D1535 [2]_) behind one glass
+    wall, whose Fresnel reflectance ((n-1)/(n+1))² = 0.04 for n = 1.5 (Hecht, Optics,
+    §4.6.2) adds to Y: ISCC-NBS [3]_ black chips (value < 2.5) stay black, greys stay grey."""
+    n = 1.5
+    veil = ((n - 1.0) / (n + 1.0)) ** 2
+    Y = float(colour.colorimetry.luminance_ASTMD1535(value)) / 100.0 + veil  # noqa: N806
+    lab = xyz_to_lab(adapt_bradford(WHITE_C * Y, WHITE_C, WHITE_D65))
+    assert colour_name(lab, solid=True) == word
+
+
 def test_table_covers_every_colour_and_solids_never_colourless():
     """Edge: the table tiles Lab for both phases; only liquids can be colourless."""
     rng = np.random.default_rng(7)  # seed 7: any seed works, the tiling is exact

@@ -78,6 +78,11 @@ OUT_OF_RANGE_TOLERANCE = 0.05
 """Slack, as a fraction of a feature's training span, before a value counts as
 outside the training range (measurement noise at the edges; our choice)."""
 
+LOW_CONFIDENCE = 0.6
+"""Top state probability below which the call is warned as uncertain even when
+no single rival is close (our choice: fewer than three trees in five agree;
+on held-out studio lights most wrong calls fall below it, bench_classify)."""
+
 OUT_OF_RANGE_FACTOR = 0.6
 """Confidence multiplier when any feature lies outside the training range (our choice)."""
 
@@ -301,6 +306,8 @@ def classify_tube(measurement, *, model: StateModel | None = None) -> TubeCall:
             if margin < CLOSE_MARGIN:
                 warnings.append(f"state is close between {state} ({p[order[0]]:.2f}) and "
                                 f"{model.classes[order[1]]} ({p[order[1]]:.2f})")
+        if confidence < LOW_CONFIDENCE and not any(w.startswith("state is close") for w in warnings):
+            warnings.append(f"state uncertain: {state} has only {confidence:.2f} of the forest's votes")
         if outside:
             confidence = min(confidence * OUT_OF_RANGE_FACTOR, OUT_OF_RANGE_MAX_CONFIDENCE)
             warnings.append("features outside the training range, state less certain: " + ", ".join(outside[:3])

@@ -16,6 +16,12 @@ pink and brown follow the ISCC-NBS colour-name blocks [3]_ as we recall their
 extent (from memory) and are checked against the Munsell renotation data in
 ``tests/classify/test_naming.py``.
 
+A cloudy liquid is named as a solid (``solid=True``; see
+:func:`tubevision.classify.calls.classify_tube`): the contract keeps
+``colourless`` for a clear liquid and never gives it to a solid, and a chemist
+writes a faint white cloud as "faint white turbidity", so its word is
+``white`` however faint it is; how faint it is, is the turbidity's business.
+
 References
 ----------
 .. [1] CIE 015:2018, Colorimetry, 4th edition. CIE, Vienna.
@@ -46,6 +52,8 @@ __all__ = [
     "NameRegion",
     "COLOUR_NAME_TABLE",
     "ACHROMATIC_MAX_CHROMA",
+    "GLASS_REFLECTANCE",
+    "SOLID_BLACK_MAX_L",
     "NAMING_TOLERANCE_DE",
     "CANDIDATE_MIN_SCORE",
     "colour_name",
@@ -64,6 +72,30 @@ About 2.5 just-noticeable differences (ΔE*ab ≈ 2.3, Mahy et al. 1994 [4]_)
 from the neutral axis; roughly Munsell chroma 1, the ISCC-NBS [3]_ limit of the
 neutral names (from memory). Used for the colourless, white, grey and black rows.
 """
+
+GLASS_REFLECTANCE = 0.04
+"""Share of the light a tube's glass wall reflects at near-normal incidence:
+Fresnel reflectance ((n - 1)/(n + 1))² for soda-lime or borosilicate glass,
+n ≈ 1.5 (E. Hecht, Optics, 4th ed., §4.6.2). A settled solid is always seen
+through the wall, so this veil adds to its luminance factor Y; the printed card
+is not behind glass, so calibration does not remove it."""
+
+BLACK_MAX_VALUE_Y = 0.0450
+"""Luminance factor of Munsell value 2.5 (ASTM D1535-08 value-to-Y polynomial:
+4.50 %, L* ≈ 25.3), the top of the ISCC-NBS neutral black block [3]_ (the
+block's extent from memory)."""
+
+
+def _l_star(Y: float) -> float:  # noqa: N803
+    """CIE 1976 lightness from a luminance factor Y in (0.008856, 1] (CIE 015:2018 eq. 8.3)."""
+    return 116.0 * Y ** (1.0 / 3.0) - 16.0
+
+
+SOLID_BLACK_MAX_L = _l_star(BLACK_MAX_VALUE_Y + GLASS_REFLECTANCE)
+"""L* below which a low-chroma *solid* is black (≈ 35.0): the ISCC-NBS black
+limit seen through one glass wall (:data:`GLASS_REFLECTANCE` added to its Y).
+A black solid behind glass reads L* 25-35 in photos (common practice), where
+the bare-chip limit L* 25.8 would call it grey."""
 
 NAMING_TOLERANCE_DE = 3.0
 """Standard deviation (ΔE*ab, per Lab axis) of the perceptual blur used by
@@ -106,6 +138,9 @@ COLOUR_NAME_TABLE: tuple[NameRegion, ...] = (
     NameRegion("white", "any", 80.0, _INF, 0.0, _C0, 0.0, 360.0,
                "ISCC-NBS white starts near Munsell value 8.5 (L* ≈ 86); a settled solid seen "
                "through glass reads a little darker than its powder, so L* 80 (Munsell ≈ 7.9)"),
+    NameRegion("black", "solid", -_INF, SOLID_BLACK_MAX_L, 0.0, _C0, 0.0, 360.0,
+               "a solid is seen through the tube wall, whose Fresnel reflection (4 %) veils it: the "
+               "ISCC-NBS black limit (Munsell value 2.5) plus that veil is L* ≈ 35 (SOLID_BLACK_MAX_L)"),
     NameRegion("grey", "any", 25.0, 80.0, 0.0, _C0, 0.0, 360.0,
                "neutral between black and white (ISCC-NBS light/medium/dark grey, Munsell 2.5-8)"),
     NameRegion("black", "any", -_INF, 25.0, 0.0, _C0, 0.0, 360.0,
