@@ -31,18 +31,6 @@ STATE_TARGET = 0.97
 COLOUR_TARGET = 0.95
 
 
-def contract_word(state: str, studio_word: str) -> str:
-    """The truth's liquid word as the contract reads it.
-
-    The contract (shared/contract.md, vocabulary) keeps ``colourless`` for a
-    *clear* liquid with no noticeable colour and never gives it to a solid; a
-    cloudy liquid is seen by the light its suspended solid scatters, and a
-    chemist writes "faint white turbidity", not "colourless". The studio's
-    faint white cloud carries ``colourless``; scored here as ``white``.
-    """
-    return "white" if state == "cloudy" and studio_word == "colourless" else studio_word
-
-
 def _lab(part):
     """A measured part's CIELAB as a rounded list (None where absent)."""
     lab = getattr(part, "lab", None) if part is not None else None
@@ -122,16 +110,10 @@ def main(argv=None) -> int:
               f"{sum(r['warned'] for r in right)} of {len(right)}")
 
     liq = [r for r in rows if r["state"] != "empty" and r["colour"]]
-    for r in liq:
-        r["colour_studio"] = r["colour"]
-        r["colour"] = contract_word(r["state"], r["colour"])
     acc = sum(r["colour_called"] == r["colour"] for r in liq) / len(liq) if liq else float("nan")
-    conv = [r for r in liq if r["colour"] != r["colour_studio"]]
-    acc_studio = (sum(r["colour_called"] == r["colour_studio"] for r in liq) / len(liq)) if liq else float("nan")
     print()
-    print(f"liquid colour-word accuracy {acc:.4f} (n = {len(liq)}; truth words by the contract: a cloudy "
-          f"liquid is named as its solid)")
-    print(f"  with the studio's own words ('colourless' for the {len(conv)} faint white clouds): {acc_studio:.4f}")
+    print(f"liquid colour-word accuracy {acc:.4f} (n = {len(liq)}; a cloudy liquid is named as its solid, "
+          f"contract vocabulary)")
     misses = collections.Counter((r["colour"], r["colour_called"]) for r in liq if r["colour_called"] != r["colour"])
     if misses:
         print("  most frequent misses (truth -> called): "

@@ -59,6 +59,8 @@ def test_every_library_entry_is_consistent():
         assert (c.pellet_mm > 0) == (c.pellet_colour_name is not None)
         if c.pellet_colour_name:
             assert c.pellet_colour_name in words - {"colourless"}
+        if c.turbidity > 0:   # contract: colourless is for a clear liquid; a solid is never colourless
+            assert c.liquid_colour_name != "colourless", c.key
 
 
 def test_unknown_contents_message():

@@ -177,8 +177,10 @@ CONTENTS: dict[str, Contents] = {c.key: c for c in (
              pellet_mm=4.0, pellet_colour_name="brown"),
     Contents("pink-precipitate", "pink-red solid settled under clear liquid", solid="pink",
              pellet_mm=3.0, pellet_colour_name="pink"),
+    # A cloudy liquid is named by the light its solid scatters: "faint white turbidity", not
+    # "colourless", which the contract keeps for a clear liquid (shared/contract.md vocabulary).
     Contents("faint-cloud", "faint white turbidity, no settled solid", solid="white",
-             turbidity=0.4, liquid_colour_name="colourless"),
+             turbidity=0.4, liquid_colour_name="white"),
     Contents("white-cloud", "white suspension (cloudy)", solid="white", turbidity=2.0,
              liquid_colour_name="white"),
     Contents("milky", "heavy white suspension (milky)", solid="white", turbidity=8.0,
