@@ -1596,6 +1596,47 @@ def _layout_liquid_top(pixels: np.ndarray, region: TubeRegion, lean_deg: float =
     return int(lt)
 
 
+STRIPE_MIN_RUNS = 8
+"""Dark runs across the photo (columns of the upright reduced copy, outside the card, dark
+in more than half their rows, between columns dark in under 15 %) from which the backdrop
+counts as striped along the tubes. Our choice, measured over the 72 photos of
+``bench/bench_tubes.py``: plain and horizontally banded backdrops give 0 runs (a rack's
+posts and its tubes' contents cover well under half a column), vertical 4 mm bands 17-53."""
+
+STRIPE_DARK_FRACTION = 0.5
+"""A pixel is dark (for :func:`_striped_backdrop`) below this fraction of the brightest
+pixel within a twentieth of the photo's width on its row (a printed dark band reflects
+≲ 10 % of the light paper's light; a glass wall's line or a pale liquid stay above half)."""
+
+STRIPED_BACKDROP_WARNING = (
+    "no tubes looked for: the backdrop's dark bands run along the tubes (vertical stripes), "
+    "where a band's edge looks like a tube's wall; turn the backdrop so its bands run across "
+    "the tubes, use a plain light one, or give --layout")
+
+
+def _striped_backdrop(rot: np.ndarray, valid: np.ndarray) -> bool:
+    """Whether the backdrop of the upright reduced copy is striped along the tubes: many
+    columns dark over most of their height, alternating with light ones
+    (:data:`STRIPE_MIN_RUNS`). Against such stripes every band edge is a wall candidate and
+    the finder's verification passes band pairs for tubes (studio benchmark: 10 % precision),
+    so no tubes are reported rather than wrong ones."""
+    import cv2
+
+    g = rot.mean(axis=2)
+    h, w = g.shape
+    win = max(3, int(round(w / 20)) | 1)
+    local_max = cv2.dilate(g, np.ones((1, win), np.uint8))
+    dark = (g < STRIPE_DARK_FRACTION * local_max) & valid & (local_max > 10.0)
+    n = valid.sum(axis=0)
+    frac = dark.sum(axis=0) / np.maximum(n, 1)
+    frac = frac[n > 0.3 * h]
+    # a run: a dark column (> 0.5 of its rows) after a light one (< 0.15)
+    state = np.where(frac > 0.5, 1, np.where(frac < 0.15, -1, 0))
+    state = state[state != 0]
+    runs = int(np.count_nonzero((state[1:] == 1) & (state[:-1] == -1)))
+    return runs >= STRIPE_MIN_RUNS
+
+
 def find_tubes(pixels: np.ndarray, *, expected: int | None = None, exclude_quad=None) -> TubeFinding:
     """Find the tubes in a rack photo, in reading order.
 
@@ -1654,6 +1695,8 @@ def find_tubes(pixels: np.ndarray, *, expected: int | None = None, exclude_quad=
         rot = cv2.warpAffine(smallf, M, (ws, hs), flags=cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
         rvalid = cv2.warpAffine(valid, M, (ws, hs), flags=cv2.INTER_NEAREST, borderValue=0)
         rvalid = cv2.erode(rvalid, np.ones((3, 3), np.uint8)).astype(bool)
+        if side == COARSE_MAX_SIDE_PX and _striped_backdrop(rot, rvalid):
+            return TubeFinding(regions=(), expected=expected, warnings=(STRIPED_BACKDROP_WARNING,))
         cands = _candidates(rot, rvalid)
         if max(pixels.shape[:2]) <= side:
             break
