@@ -871,6 +871,14 @@ BACKDROP_LIKE_FRACTION = 0.75
 fraction of the median brightness of the same columns beside the tube's body (sRGB codes;
 a rack bar in front is darker)."""
 
+RIM_SEARCH_WIDTHS = 2.0
+"""The rim is looked for from one width above the track's first peak down to this many
+widths below it: a track can start well above the rim where blur or a neighbour's lean
+leaves pair peaks over the free backdrop (our choice, studio benchmark on plain and
+horizontally banded photos: recall 94.1 -> 96.6 % at seed 500 and 91.7 -> 93.9 % at seed
+901 from 1.0, precision 100 % both; 3.0 adds nothing). The checks above the rim then
+reject a rim found under something that runs on."""
+
 ARC_SCORE_MIN = 0.3
 """Smallest round-bottom score (:func:`_arc_scores`, 0-1): mean over the lower arc of
 radially oriented edge strength relative to the walls' own strength. A visible bottom
@@ -1130,7 +1138,7 @@ def _verify(c, ev: _Evidence, out: list, pending: list, refit: bool = True) -> N
     k = max(3, int(round(0.4 * w)))
     on_l = (on | ~light).astype(float)
     run = np.convolve(on_l, np.ones(k), mode="full")[k - 1:k - 1 + on_l.size] / k   # mean of on_l[i:i+k]
-    lim = int(np.searchsorted(rows, c.top + w))
+    lim = int(np.searchsorted(rows, c.top + RIM_SEARCH_WIDTHS * w))
     starts = np.nonzero(on[:lim] & (run[:lim] >= 0.8))[0]
     if starts.size == 0:
         return _reject(c, "no rim")
