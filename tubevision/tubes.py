@@ -458,12 +458,6 @@ MENISCUS_LOWEST_FRACTION = 0.3
 """The meniscus is looked for down to this fraction of the width above the round
 bottom's centre; lower down, a settled solid's top would be taken for it."""
 
-MENISCUS_HALF_BAND_FRACTION = 0.025
-"""Half the height of the dark band a meniscus shows from the side, as a fraction of the
-tube's outer width (≈ 0.4 mm of a 16 mm tube; from memory: the band looks about 1 mm
-high): where the surface is placed inside a dark backdrop band, the liquid top (just
-below the meniscus, contract) lies this much lower."""
-
 MENISCUS_RIM_CLEARANCE = 0.45
 """The meniscus is looked for from this fraction of the width below the rim (7 mm in a
 16 mm tube): the rim's lip is a dark line too, and a rim placed up to ~0.3 widths high
@@ -1448,8 +1442,6 @@ def _meniscus_rows(R: np.ndarray, ok: np.ndarray, flat: np.ndarray, lo: int, hi:
     if flat[gap].mean() > 0.5:
         return v                       # hidden behind an occluder: first visible liquid row
     g0, g1 = int(vv[j - 1]) + 1, v
-    # the rows below place the surface itself; the liquid top is just below the meniscus
-    below_surface = max(1, int(round(MENISCUS_HALF_BAND_FRACTION * w_full)))
     if dark_rows is not None:
         Rd = R.mean(axis=1)
         idx = np.nonzero(dark_rows)[0]
@@ -1462,11 +1454,11 @@ def _meniscus_rows(R: np.ndarray, ok: np.ndarray, flat: np.ndarray, lo: int, hi:
                 half = 0.5 * (top_l + bot_l)
                 past = (Rd[inside] - half) * np.sign(bot_l - top_l) > 0
                 if past.all():
-                    return g0 + below_surface  # the meniscus sits at the band's upper edge
+                    return g0                   # the meniscus sits at the band's upper edge
                 if not past.any():
-                    return g1                   # ... at its lower edge: the first liquid row
-                return int(inside[int(np.argmax(past))]) + below_surface
-    return int(round((g0 + g1 - 1) / 2)) + below_surface   # inside a dark band: its middle
+                    return g1                   # ... at its lower edge
+                return int(inside[int(np.argmax(past))])
+    return int(round((g0 + g1 - 1) / 2))       # inside a dark band: its middle
 
 
 BAND_ALIGN_MAX_FRACTION = 0.1
