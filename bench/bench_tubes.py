@@ -13,7 +13,9 @@ Figures (printed): precision and recall of tubes (found boxes matched greedily t
 boxes by IoU ≥ 0.5, best pairs first), mean box IoU of the matches, liquid-top error
 (mm, on the tube's axis, at the truth's mm per px corrected by the homography's local
 scale) and how often a liquid top is missed or invented (empty tubes), time per photo;
-the same liquid-top figures for the truth boxes given as a layout (``--layout`` path);
+the same figures over the backdrops the finder searches (plain and horizontal bands:
+against vertical stripes it reports no tubes and says why); the liquid-top figures for
+the truth boxes given as a layout (``--layout`` path);
 then breakdowns per layout, backdrop, roll, perspective and contents; then the finding
 time on a 12-megapixel photo (a 2016×1512 render enlarged ×2 by linear interpolation:
 the finder's cost depends on the pixel count, not on the detail).
@@ -219,6 +221,7 @@ def main(argv=None) -> int:
     n = args.photos or (12 if args.quick else 72)
     total = Tally()
     layout_tally = Tally()     # the --layout path: truth boxes given by hand
+    looked = Tally()           # the backdrops the finder searches (a striped one it refuses, saying so)
     groups: dict[str, dict[str, Tally]] = defaultdict(lambda: defaultdict(Tally))
     t_all = time.perf_counter()
     n_cut = 0
@@ -245,6 +248,8 @@ def main(argv=None) -> int:
                 "perspective": "tilt < 7.5" if cond["tilt"] < 7.5 else "tilt 7.5-15"}
         for g, v in keys.items():
             groups[g][v].add(truth, regions, pairs, dt)
+        if cond["backdrop"] != "vbands":
+            looked.add(truth, regions, pairs, dt)
         matched = {i: (j, v) for i, j, v in pairs}
         for i, t in enumerate(truth):
             sub = Tally()
@@ -266,6 +271,7 @@ def main(argv=None) -> int:
     print(f"tube finder on {n} studio photos (seed {args.seed}), {time.perf_counter() - t_all:.0f} s in all; "
           f"{n_cut} tubes cut by the frame's edge left out")
     print(total.line("ALL"))
+    print(looked.line("plain + hbands"))
     print(layout_tally.line("layout (truth boxes)"))
     for g, members in groups.items():
         print(f"-- by {g}")
