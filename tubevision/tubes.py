@@ -348,6 +348,13 @@ COARSE_MIN_WIDTH_PX = 24
 enough that walls, rim and round bottom are each several pixels (≈ 2.7 × the narrowest
 width looked for, :data:`MIN_TUBE_WIDTH_PX`)."""
 
+COARSE_MIN_TUBES = 2
+"""Fewest tubes for the quick search's result to stand at once: a lone wide "tube" found
+there may be a pair of walls spanning a gap, left over where narrow tubes in front of fine
+bands did not verify at that scale (studio benchmark: a rack of 24 found as one). The full
+search then runs, and the quick result is kept only when the full one finds fewer tubes
+(a single tube, seen well on the small copy)."""
+
 FIND_MAX_SIDE_PX = 1024
 """Longer side (px) of the reduced copy the finder searches. A 24-tube rack
 filling a 12-MP photo still gives tubes ≳ 25 px wide there (at 768 px the walls
@@ -1694,6 +1701,7 @@ def find_tubes(pixels: np.ndarray, *, expected: int | None = None, exclude_quad=
     quad = _validate_quad(exclude_quad)
     # coarse to fine: a rack whose tubes come out wide on a small copy is searched there
     # (fast); narrow tubes (many in a row, or a distant rack) or none found: the full search
+    coarse = None
     for side in (COARSE_MAX_SIDE_PX, FIND_MAX_SIDE_PX):
         small, scale = reduced_copy(pixels, max_side=side)
         hs, ws = small.shape[:2]
@@ -1713,11 +1721,17 @@ def find_tubes(pixels: np.ndarray, *, expected: int | None = None, exclude_quad=
         if side == COARSE_MAX_SIDE_PX and _striped_backdrop(rot, rvalid):
             return TubeFinding(regions=(), expected=expected, warnings=(STRIPED_BACKDROP_WARNING,))
         cands = _candidates(rot, rvalid)
+        if side != COARSE_MAX_SIDE_PX:
+            # a lone wide tube of the quick search stands when the full one finds fewer
+            if coarse is not None and len(cands) < len(coarse[0]):
+                cands, M, scale = coarse
+            break
         if max(pixels.shape[:2]) <= side:
             break
-        if (cands and float(np.median([c.w for c in cands])) >= COARSE_MIN_WIDTH_PX
-                and (expected is None or len(cands) == expected)):
+        wide = bool(cands) and float(np.median([c.w for c in cands])) >= COARSE_MIN_WIDTH_PX
+        if wide and len(cands) >= COARSE_MIN_TUBES and (expected is None or len(cands) == expected):
             break
+        coarse = (cands, M, scale) if wide else None
     Mi = cv2.invertAffineTransform(M)
     A = Mi * scale
     A[:, 2] += 0.5 * scale - 0.5
