@@ -863,6 +863,11 @@ WALL_VALLEY_MIN = 0.25
 """Smallest fraction of the light rows where both walls are dark lines: the air above the
 liquid and clear liquids show them, dark or cloudy liquids may hide the inner side."""
 
+WALL_VALLEY_TOP_MIN = 0.5
+"""Or the smallest fraction of the upper third of those rows (the air above the liquid in a
+tube filled up to two thirds, common practice) where both walls are dark lines: a tube
+nearly full of a coloured or cloudy liquid shows its walls as lines only there."""
+
 INNER_WALL_FREE_FRACTION = 0.36
 """Half-width (fraction of the outer width) of the inside that must carry no dark line as
 dark as half the walls' (the glass walls are 0.07 widths thick, and refraction keeps them
@@ -1131,7 +1136,8 @@ def _verify(c, ev: _Evidence, out: list, pending: list, refit: bool = True) -> N
         out_v = G[:, cu(u_wall + sgn * m)]
         in_v = G[:, cu(u_wall - sgn * 2 * m)]
         valley &= np.minimum(out_v, in_v) - line > WALL_VALLEY_CONTRAST * out_v
-    if valley[sel].mean() < WALL_VALLEY_MIN:
+    vs = valley[sel]
+    if vs.mean() < WALL_VALLEY_MIN and vs[:max(1, vs.size // 3)].mean() < WALL_VALLEY_TOP_MIN:
         return _reject(c, "walls not dark lines")
     # no third wall inside: a dark line inside the glass, nearly as dark as the walls'
     # lines, is another tube's wall (a pair spanning a tube and a gap). Specular streaks
