@@ -794,7 +794,11 @@ def _candidates(rot: np.ndarray, valid: np.ndarray) -> list[_Candidate]:
     for k in range(-WIDTH_SPREAD_STEPS, WIDTH_SPREAD_STEPS + 1):
         if k:
             w = w_ref * WIDTH_STEP_RATIO ** (2 * k)
-            found.extend(_verify_all(_tracks_at_width(Pn, w), ev, known=found))
+            # held to the same width agreement: a tube the walls measure much wider than
+            # the row's would win the overlap against the right one (its support grows with
+            # the width) and then be dropped as off its row's median, losing both
+            found.extend(t for t in _verify_all(_tracks_at_width(Pn, w), ev, known=found)
+                         if abs(t.w / w_ref - 1.0) <= ROW_WIDTH_TOLERANCE)
     return _consistent_rows(_drop_overlapping_tubes(found))
 
 
