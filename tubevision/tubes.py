@@ -364,6 +364,13 @@ ROLL_MAX_DEG = 15.0
 """Largest camera roll (degrees) the finder looks for; the task asks for 10°,
 with margin for perspective lean."""
 
+ROLL_RECHECK_DEG = 2.0
+"""When the tubes found lean together by more than this (median axis lean, degrees), the
+search runs again turned by that lean, and its result replaces the first when it holds more
+tubes (our choice: the finder's walls are followed within ±15° of lean, but verification
+loses thin leaning walls; studio benchmark, a rolled rack of 24 in front of fine bands: 1
+tube found at 4.7° of residual roll, 23 after turning)."""
+
 ROLL_BIN_DEG = 0.5
 """Histogram bin of the roll estimate (degrees)."""
 
@@ -1731,6 +1738,19 @@ def find_tubes(pixels: np.ndarray, *, expected: int | None = None, exclude_quad=
         if side == COARSE_MAX_SIDE_PX and _striped_backdrop(rot, rvalid):
             return TubeFinding(regions=(), expected=expected, warnings=(STRIPED_BACKDROP_WARNING,))
         cands = _candidates(rot, rvalid)
+        if cands:
+            # the tubes found lean together: the roll estimate was off (thin walls' pixel
+            # steps pull edge directions toward the grid); turn by their lean and search again
+            lean = float(np.degrees(np.arctan(np.median([c.b for c in cands]))))
+            if abs(lean) > ROLL_RECHECK_DEG:
+                M2 = cv2.getRotationMatrix2D((ws / 2.0, hs / 2.0), roll - lean, 1.0)
+                rot2 = cv2.warpAffine(smallf, M2, (ws, hs), flags=cv2.INTER_LINEAR,
+                                      borderMode=cv2.BORDER_REPLICATE)
+                rvalid2 = cv2.warpAffine(valid, M2, (ws, hs), flags=cv2.INTER_NEAREST, borderValue=0)
+                rvalid2 = cv2.erode(rvalid2, np.ones((3, 3), np.uint8)).astype(bool)
+                cands2 = _candidates(rot2, rvalid2)
+                if len(cands2) > len(cands):
+                    cands, M = cands2, M2
         if side != COARSE_MAX_SIDE_PX:
             # a lone wide tube of the quick search stands when the full one finds fewer
             if coarse is not None and len(cands) < len(coarse[0]):
