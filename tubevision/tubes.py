@@ -1676,6 +1676,18 @@ def _striped_backdrop(rot: np.ndarray, valid: np.ndarray) -> bool:
     return runs >= STRIPE_MIN_RUNS
 
 
+def _turned(smallf: np.ndarray, valid: np.ndarray, roll: float):
+    """The reduced copy turned upright by ``roll`` degrees about its centre: (2×3 matrix,
+    turned float pixels, turned valid mask eroded by one pixel off its edge)."""
+    import cv2
+
+    hs, ws = smallf.shape[:2]
+    M = cv2.getRotationMatrix2D((ws / 2.0, hs / 2.0), roll, 1.0)
+    rot = cv2.warpAffine(smallf, M, (ws, hs), flags=cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
+    rvalid = cv2.warpAffine(valid, M, (ws, hs), flags=cv2.INTER_NEAREST, borderValue=0)
+    return M, rot, cv2.erode(rvalid, np.ones((3, 3), np.uint8)).astype(bool)
+
+
 def find_tubes(pixels: np.ndarray, *, expected: int | None = None, exclude_quad=None) -> TubeFinding:
     """Find the tubes in a rack photo, in reading order.
 
@@ -1731,10 +1743,7 @@ def find_tubes(pixels: np.ndarray, *, expected: int | None = None, exclude_quad=
         smallf = small.astype(np.float32)
         gray = smallf.mean(axis=2)
         roll = _estimate_roll_deg(gray, valid.astype(bool))
-        M = cv2.getRotationMatrix2D((ws / 2.0, hs / 2.0), roll, 1.0)
-        rot = cv2.warpAffine(smallf, M, (ws, hs), flags=cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
-        rvalid = cv2.warpAffine(valid, M, (ws, hs), flags=cv2.INTER_NEAREST, borderValue=0)
-        rvalid = cv2.erode(rvalid, np.ones((3, 3), np.uint8)).astype(bool)
+        M, rot, rvalid = _turned(smallf, valid, roll)
         if side == COARSE_MAX_SIDE_PX and _striped_backdrop(rot, rvalid):
             return TubeFinding(regions=(), expected=expected, warnings=(STRIPED_BACKDROP_WARNING,))
         cands = _candidates(rot, rvalid)
@@ -1743,11 +1752,7 @@ def find_tubes(pixels: np.ndarray, *, expected: int | None = None, exclude_quad=
             # steps pull edge directions toward the grid); turn by their lean and search again
             lean = float(np.degrees(np.arctan(np.median([c.b for c in cands]))))
             if abs(lean) > ROLL_RECHECK_DEG:
-                M2 = cv2.getRotationMatrix2D((ws / 2.0, hs / 2.0), roll - lean, 1.0)
-                rot2 = cv2.warpAffine(smallf, M2, (ws, hs), flags=cv2.INTER_LINEAR,
-                                      borderMode=cv2.BORDER_REPLICATE)
-                rvalid2 = cv2.warpAffine(valid, M2, (ws, hs), flags=cv2.INTER_NEAREST, borderValue=0)
-                rvalid2 = cv2.erode(rvalid2, np.ones((3, 3), np.uint8)).astype(bool)
+                M2, rot2, rvalid2 = _turned(smallf, valid, roll - lean)
                 cands2 = _candidates(rot2, rvalid2)
                 if len(cands2) > len(cands):
                     cands, M = cands2, M2
