@@ -1688,6 +1688,33 @@ def _turned(smallf: np.ndarray, valid: np.ndarray, roll: float):
     return M, rot, cv2.erode(rvalid, np.ones((3, 3), np.uint8)).astype(bool)
 
 
+TUBES_ON_SIDE_WARNING = (
+    "no upright tubes found, but tubes lie on their side in this photo (its orientation tag may "
+    "be missing or wrong): turn the photo so the tubes stand upright, rims at the top, and "
+    "analyse it again")
+
+
+def _tubes_on_their_side(pixels: np.ndarray, quad) -> bool:
+    """Where no upright tube was found: whether tubes are found on the quick search's copy
+    turned by a quarter turn. A photo whose orientation tag was lost (messaging apps strip
+    it) shows the rack on its side; the stages after this one read tubes upright, so the
+    person is told to turn the photo rather than have turned tubes read."""
+    import cv2
+
+    from .image import reduced_copy
+
+    small, scale = reduced_copy(pixels, max_side=COARSE_MAX_SIDE_PX)
+    valid = np.ones(small.shape[:2], np.uint8)
+    if quad is not None:
+        q = (quad + 0.5) / scale - 0.5
+        c = q.mean(axis=0)
+        cv2.fillPoly(valid, [np.round(c + (q - c) * 1.08).astype(np.int32)], 0)
+    sm = np.ascontiguousarray(np.rot90(small)).astype(np.float32)
+    va = np.ascontiguousarray(np.rot90(valid))
+    _, rot, rvalid = _turned(sm, va, _estimate_roll_deg(sm.mean(axis=2), va.astype(bool)))
+    return not _striped_backdrop(rot, rvalid) and bool(_candidates(rot, rvalid))
+
+
 def find_tubes(pixels: np.ndarray, *, expected: int | None = None, exclude_quad=None) -> TubeFinding:
     """Find the tubes in a rack photo, in reading order.
 
@@ -1794,7 +1821,10 @@ def find_tubes(pixels: np.ndarray, *, expected: int | None = None, exclude_quad=
                                   axis_row=g["axis_row"]))
     warnings = []
     if not regions:
-        warnings.append("no tubes found in the photo; check framing and lighting, or give --layout")
+        if _tubes_on_their_side(pixels, quad):
+            warnings.append(TUBES_ON_SIDE_WARNING)
+        else:
+            warnings.append("no tubes found in the photo; check framing and lighting, or give --layout")
     if expected is not None and len(regions) != expected:
         warnings.append(f"found {len(regions)} tubes but {expected} were expected")
     return TubeFinding(regions=tuple(regions), expected=expected, warnings=tuple(warnings))

@@ -181,3 +181,19 @@ def test_layout_boxes_get_the_meniscus(stem):
         else:
             assert abs(r.liquid_top - t["liquid_top"]) * truth["mm_per_px"] <= 1.5, \
                 (t["index"], r.liquid_top, t["liquid_top"])
+
+
+def test_a_photo_on_its_side_says_so():
+    """[synthetic] A rack photo whose orientation tag was lost shows the tubes on their side:
+    no tubes are reported (the later stages read tubes upright), and the warning says to turn
+    the photo rather than that there are no tubes."""
+    from tubevision.tubes import TUBES_ON_SIDE_WARNING
+
+    photo, truth, _ = _load("mixed-plain-d65")
+    h, w = photo.pixels.shape[:2]
+    turned = np.ascontiguousarray(np.rot90(photo.pixels))          # a quarter turn, counter-clockwise
+    quad = np.asarray(truth["card"]["corners_px"], float)
+    quad = np.stack([quad[:, 1], w - 1 - quad[:, 0]], axis=1)      # (x, y) -> (y, W - 1 - x)
+    finding = find_tubes(turned, exclude_quad=quad)
+    assert finding.regions == ()
+    assert finding.warnings == (TUBES_ON_SIDE_WARNING,)
