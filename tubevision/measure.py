@@ -1088,17 +1088,27 @@ HIDDEN_SOLID_ZONE_FRACTION = 0.1
 for a 16 mm tube)."""
 
 
-def _no_solid(cls_dark: np.ndarray, last_judged: int, width: float, mm_per_px, banded: bool):
+def _no_solid(cls_light: np.ndarray, cls_dark: np.ndarray, last_judged: int, width: float, mm_per_px,
+              banded: bool):
     """No solid found; say whether a white one could hide against a light band, or a black
     one against a dark band (see :class:`PelletMeasurement`): common practice is to look at
-    a white precipitate against a dark background and a dark one against a light one, and
-    the zone here has no row of the one kind (light: plain backdrops too) or only dark ones."""
+    a white precipitate against a dark background and a dark one against a light one.
+
+    A solid shows only over rows where the backdrop is plainly the other shade: a white one
+    over dark-band rows (``cls_dark``), a black one over light-band rows (``cls_light``;
+    every row of a plain backdrop). Rows near a band edge are neither: there the backdrop
+    beside the tube changes within the few rows by which the view through the tube may be
+    out of register with it (:data:`PELLET_ROW_SHIFT_FRACTION`, the round bottom's lens), so
+    a solid there can always be read as the liquid over the other band; rows hidden by
+    something in front are neither either. So each flag is raised when the zone holds no row
+    that would show that solid: the same test both ways."""
     zone = (HIDDEN_SOLID_ZONE_MM / mm_per_px if mm_per_px else HIDDEN_SOLID_ZONE_FRACTION * width)
     lo = max(0, int(last_judged - max(2, round(zone))))
-    z = cls_dark[lo:max(lo + 1, last_judged)]
-    dark_seen = bool(banded and z.any())
-    only_dark = bool(banded and z.size and z.all())
-    return PelletMeasurement(present=False, light_solid_hidden=not dark_seen, dark_solid_hidden=only_dark)
+    sel = slice(lo, max(lo + 1, last_judged))
+    dark_seen = bool(banded and cls_dark[sel].any())
+    light_seen = bool(cls_light[sel].any()) if banded else True
+    return PelletMeasurement(present=False, light_solid_hidden=not dark_seen,
+                             dark_solid_hidden=bool(banded and not light_seen))
 
 
 def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_rows, banded, beside_y,
@@ -1229,7 +1239,7 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     walked = np.arange(j + 1, last + 1)
     solid_idx = walked[is_solid[walked]]
     if solid_idx.size == 0:
-        return _no_solid(cls_dark, rows.size - skip, width, mm_per_px, banded), info
+        return _no_solid(cls_light, cls_dark, rows.size - skip, width, mm_per_px, banded), info
     top_j = int(solid_idx.min())
     start = int(solid_idx.max())
     run = slice(top_j, start + 1)
@@ -1296,7 +1306,7 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     min_px = PELLET_MIN_HEIGHT_PX if mm_per_px is None else max(PELLET_MIN_HEIGHT_PX - 1,
                                                                 PELLET_MIN_HEIGHT_MM / mm_per_px)
     if height_px < min_px or contrast < PELLET_MIN_CONTRAST_DE00 or follow > PELLET_MAX_BAND_FOLLOW:
-        return _no_solid(cls_dark, rows.size - skip, width, mm_per_px, banded), info
+        return _no_solid(cls_light, cls_dark, rows.size - skip, width, mm_per_px, banded), info
     # colour of the solid: the axis strip over the run, highlights out
     srows = rows[run][is_solid[run]]
     px = win.lin[srows, a0:a1].reshape(-1, 3)
