@@ -187,9 +187,11 @@ def photo_session(scheme, ions: set[str], seed: int, spoil_step: str | None = No
     judge: the scheme stage on real measurements, the card left out.
 
     With ``retake``, the analyst follows the tool's advice once: where a step's judgement
-    asks for a new photo with a dark band behind the tube bottoms
+    asks for a new photo with the other band behind the tube bottoms
     (``StepJudgement.retake_positions``), the same scene is photographed again with the
-    rack moved by one band (``band_shift_mm = band_mm``), and that photo's record is used.
+    rack moved by one band (``band_shift_mm = band_mm``), and both photos' records go to
+    ``conclude`` (which sets aside a photo whose controls failed and needs the others to
+    agree). A step counts as flagged when no photo of it passed its controls.
     """
     from tubevision.image import photo_from_array
     from tubevision.studio import SceneSpec, TubeSpec, render_scene
@@ -216,17 +218,23 @@ def photo_session(scheme, ions: set[str], seed: int, spoil_step: str | None = No
                                    layout_boxes=boxes if truth_boxes else None)
             try:
                 a = analyze_photo(photo_from_array(photo.upright, name=f"{step}.png"), opts, scheme=scheme)
-                if retake and a.judgement.retake_positions:
-                    photo = render_scene(replace(spec, band_shift_mm=spec.band_mm), seed=seed * 10 + k)
-                    boxes = tuple(tuple(int(v) for v in tb["bbox"]) for tb in photo.truth["tubes"])
-                    opts = replace(opts, layout_boxes=boxes if truth_boxes else None)
-                    a = analyze_photo(photo_from_array(photo.upright, name=f"{step}-again.png"), opts,
-                                      scheme=scheme)
             except TubevisionInputError:  # fewer tubes found than labelled: this step is lost
                 flagged[step] = True
                 continue
-            flagged[step] = tuple(f.cause for f in a.judgement.control_failures)
-            records.append(build_record(a))
+            shots = [a]
+            if retake and a.judgement.retake_positions:
+                photo = render_scene(replace(spec, band_shift_mm=spec.band_mm), seed=seed * 10 + k)
+                boxes = tuple(tuple(int(v) for v in tb["bbox"]) for tb in photo.truth["tubes"])
+                opts = replace(opts, layout_boxes=boxes if truth_boxes else None)
+                try:
+                    shots.append(analyze_photo(photo_from_array(photo.upright, name=f"{step}-again.png"), opts,
+                                               scheme=scheme))
+                except TubevisionInputError:  # the second photo is lost; the first one stands
+                    pass
+            # the step is flagged when no photo of it passed its controls
+            causes = [tuple(f.cause for f in s.judgement.control_failures) for s in shots]
+            flagged[step] = tuple(c for cs in causes for c in cs) if all(causes) else ()
+            records.extend(build_record(s) for s in shots)
         else:
             from tubevision import measure, tubes
             from tubevision.classify import classify_tube

@@ -114,6 +114,34 @@ def test_control_whose_light_solid_could_not_show_blames_the_photo_not_the_reage
     assert j.retake_positions == (2,)
 
 
+def test_retake_asked_only_where_the_other_band_could_change_the_judgement():
+    # The chloride step's positive names white and grey solids (silver chloride darkens in
+    # light, common practice), but with a white solid in the control a bottom in front of a
+    # dark band hides nothing the step could see: no retake for it. Moving the rack would put
+    # the control's own white solid in front of a light band (the bench's retake pass lost
+    # good steps that way). A bottom in front of a light band still asks for one.
+    import dataclasses
+
+    dark_blank = dataclasses.replace(clear(2), dark_solid_hidden=True)
+    j = judge_step(G1, "chloride-precipitation", [settled(0, *WHITE), settled(1, *WHITE), dark_blank], LABELS3)
+    assert j.retake_positions == () and not any("photograph again" in w for w in j.warnings)
+    light_blank = dataclasses.replace(clear(2), light_solid_hidden=True)
+    j = judge_step(G1, "chloride-precipitation", [settled(0, *WHITE), settled(1, *WHITE), light_blank], LABELS3)
+    assert j.retake_positions == (3,)
+    # a control failing because its light solid could not show: the retake is for it
+    light_ctrl = dataclasses.replace(clear(0), light_solid_hidden=True)
+    j = judge_step(G1, "chloride-precipitation", [light_ctrl, settled(1, *WHITE), clear(2)], LABELS3)
+    assert j.retake_positions == (1,)
+    # no positive control labelled: which shade the step's solid has is unknown, both count
+    lab = parse_labels("2=unknown A,3=blank", 3)
+    j = judge_step(G1, "chloride-precipitation", [clear(0), dark_blank, light_blank], lab)
+    assert j.retake_positions == (2, 3)
+    # acidification: the control is positive by its cloud, no solid to compare: no retake
+    j = judge_step(G1, "acidification", [cloudy(0), dataclasses.replace(clear(1), light_solid_hidden=True),
+                                         clear(2)], LABELS3)
+    assert _verdicts(j)["unknown A"] == "negative" and j.retake_positions == ()
+
+
 def test_cloudy_blank_fails_and_is_diagnosed():
     obs = [settled(0, *WHITE), clear(1), cloudy(2, turbidity=0.3)]
     j = judge_step(G1, "chloride-precipitation", obs, LABELS3)

@@ -496,6 +496,23 @@ def _control_solid_is(obs_list, roles, kind: str) -> bool:
     return False
 
 
+def _retake_matters(st: Step, kind: str, obs_list, roles, prelim) -> bool:
+    """Whether a photo with the other band behind the bottoms could change this step's
+    judgement for a ``kind`` ("light"/"dark") solid: the step looks for such a solid, and
+    either a positive control shows one (so a sample's or the blank's solid would look like
+    it), or a control failed because such a solid could not have shown, or no control is
+    labelled to say which shade the step's solid has. A step whose positive names both
+    shades (a light solid that may darken to grey) but whose control shows a light one
+    gains nothing from moving a dark solid's band, and moving it would put the control's
+    own light solid in front of a light band."""
+    if not _expects_solid(st.positive.condition, kind):
+        return False
+    controls = [pos for pos, role in roles.items() if role == "control"]
+    if not controls or _control_solid_is(obs_list, roles, kind):
+        return True
+    return any(_hidden(obs_list[pos - 1], kind) and prelim[pos][0] != "positive" for pos in controls)
+
+
 def _band_advice(kind: str) -> str:
     return f"photograph again with a {_HIDING[kind][3]} band behind the tube bottoms"
 
@@ -643,7 +660,7 @@ def judge_step(scheme: Scheme, step: str, observations: Sequence[TubeObservation
                                     quantities=q, warnings=tuple(diag)))
     retake: set[int] = set()
     for kind in _HIDING:
-        if not _expects_solid(st.positive.condition, kind):
+        if not _retake_matters(st, kind, obs_list, roles, prelim):
             continue
         hidden = [pos for pos in sorted(prelim) if _hidden(obs_list[pos - 1], kind)]
         if hidden:
