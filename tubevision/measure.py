@@ -995,9 +995,14 @@ def _opacity_dev(ln_i, ln_b, model, k_lo, k_hi, shift) -> np.ndarray:
     I = B·T^k + S·g with g anywhere between k (thin veil, growing with the path) and 1
     (saturated veil): Beer–Lambert for T, the two limits of a scattering layer for S. Returned: the smallest max-channel
     |difference| (channels weighted by :data:`PELLET_CHANNEL_WEIGHTS`) over k (a grid of
-    :data:`PELLET_K_STEPS`) and over the beside readings up to ``shift`` rows away (per
-    row): the view through the tube and the strip beside it may be out of register by a
-    pixel or two at band edges (lean, parallax, the tube's own lens).
+    :data:`PELLET_K_STEPS`) and over the backdrop behind the row: the view through the tube
+    and the strip beside it may be out of register by up to ``shift`` rows (per row) at band
+    edges (lean, parallax, the tube's own lens), by any fraction of a row, so the backdrop
+    behind a row near an edge is taken as anywhere between the least and the most of the
+    beside readings within that reach (I grows with B, so the liquid's readings then span
+    [I(B_min) thin, I(B_max) saturated]). Whole-row registrations alone miss the readings
+    half-way down an edge: clear water read one opaque row per light-to-dark edge, and a
+    water blank showed a 1 mm "solid" where one such row sat just above the glass bottom.
     Absorbances are capped at :data:`PELLET_MAX_ABSORBANCE`: below ~5 % transmission a
     camera's flare, noise and tone curve leave no reliable reading (common practice).
     """
@@ -1009,20 +1014,23 @@ def _opacity_dev(ln_i, ln_b, model, k_lo, k_hi, shift) -> np.ndarray:
     t_c, s_c = model
     ln_t = np.log(np.maximum(np.asarray(t_c, float), 1e-6))
 
-    def dev_at(rows_i, j):
-        # predicted light through the liquid over the chord ratio k, given the backdrop
-        # reading of row j: I = B·T^k + S·g, the veil g between k (thin) and 1 (saturated)
+    def dev_at(rows_i, lb_lo, lb_hi):
+        # predicted light through the liquid over the chord ratio k, given a backdrop between
+        # exp(lb_lo) and exp(lb_hi): I = B·T^k + S·g, the veil g between k (thin) and 1
+        # (saturated); the least with the darkest backdrop, the most with the lightest
         k = kk[rows_i]                                                     # (m, K)
-        direct = np.exp(ln_b[j])[:, None, :] * np.exp(k[:, :, None] * ln_t[None, None, :])   # (m, K, C)
-        floor = (ln_b[j] - PELLET_MAX_ABSORBANCE)[:, None, :]
-        lo = np.maximum(np.log(np.maximum(direct + s_c * k[:, :, None], 1e-6)), floor)       # thin veil
-        hi = np.maximum(np.log(np.maximum(direct + s_c[None, None, :], 1e-6)), floor)       # saturated
-        obs = np.maximum(ln_i[rows_i], ln_b[j] - PELLET_MAX_ABSORBANCE)[:, None, :]  # darker reads as the cap
+        t_k = np.exp(k[:, :, None] * ln_t[None, None, :])                  # (m, K, C)
+        floor = (lb_lo - PELLET_MAX_ABSORBANCE)[:, None, :]
+        lo = np.maximum(np.log(np.maximum(np.exp(lb_lo)[:, None, :] * t_k + s_c * k[:, :, None], 1e-6)),
+                        floor)                                                                # thin veil
+        hi = np.maximum(np.log(np.maximum(np.exp(lb_hi)[:, None, :] * t_k + s_c[None, None, :], 1e-6)),
+                        (lb_hi - PELLET_MAX_ABSORBANCE)[:, None, :])                         # saturated
+        obs = np.maximum(ln_i[rows_i][:, None, :], floor)                  # darker reads as the cap
         d = np.maximum(np.maximum(lo - obs, obs - hi), 0.0)                # outside [thin, saturated]
         return (d * w).max(axis=2).min(axis=1)
 
     idx = np.arange(n)
-    best = dev_at(idx, idx)
+    best = dev_at(idx, ln_b, ln_b)
     # other registrations matter only near a band edge (the backdrop changes within reach)
     m = int(shift.max())
     if m > 0 and n > 1:
@@ -1032,16 +1040,15 @@ def _opacity_dev(ln_i, ln_b, model, k_lo, k_hi, shift) -> np.ndarray:
         span = maximum_filter1d(y, 2 * m + 1, mode="nearest") - minimum_filter1d(y, 2 * m + 1, mode="nearest")
         near = np.flatnonzero(span > 0.5 * PELLET_MIN_OPACITY)
         if near.size:
-            sub = best[near]
-            # registrations a pixel apart give nearly the same reading on a large photo,
-            # where a band edge spans several pixels: try about seven of them (speed)
-            for s_ in range(-m, m + 1, max(1, -(-m // 3))):
+            lb_lo, lb_hi = ln_b[near].copy(), ln_b[near].copy()
+            for s_ in range(-m, m + 1):
                 if s_ == 0:
                     continue
-                ok = np.abs(s_) <= shift[near]
+                ok = (np.abs(s_) <= shift[near])[:, None]
                 j = np.clip(near + s_, 0, n - 1)
-                sub = np.where(ok, np.minimum(sub, dev_at(near, j)), sub)
-            best[near] = sub
+                lb_lo = np.where(ok, np.minimum(lb_lo, ln_b[j]), lb_lo)
+                lb_hi = np.where(ok, np.maximum(lb_hi, ln_b[j]), lb_hi)
+            best[near] = np.minimum(best[near], dev_at(near, lb_lo, lb_hi))
     return best
 
 

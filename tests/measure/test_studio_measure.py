@@ -96,26 +96,33 @@ def test_a_solid_is_found_or_said_to_be_hidden_at_every_band_phase():
     """[synthetic] Whatever band lies behind a tube's bottom, a 2.5-3 mm settled solid is
     either found or reported as possibly hidden there (``dark_solid_hidden`` for a black
     one, ``light_solid_hidden`` for a white one): never silently missed, which would turn
-    into a wrong 'absent' call. The backdrop is moved under the rack in 0.5 mm steps over
-    one period of its 4 mm light and dark bands (``band_shift_mm``). Before the band-edge
-    rows were counted as hiding a black solid, a grey-black pellet over a dark band whose
-    edge ran through it was missed with neither flag set, at several of these phases."""
+    into a wrong 'absent' call; and clear water never shows a solid. The backdrop is moved
+    under the rack in 0.5 mm steps over one period of its 4 mm light and dark bands
+    (``band_shift_mm``). Before the band-edge rows were counted as hiding a black solid, a
+    grey-black pellet over a dark band whose edge ran through it was missed with neither
+    flag set at several of these phases; before the backdrop behind a row near an edge was
+    allowed any fraction of a row out of register, the water read a 1 mm grey "solid" at
+    some (one opaque row half-way down a light-to-dark edge just above the glass bottom)."""
     from tubevision.card.detect import find_card
     from tubevision.card.fit import fit_card_correction
     from tubevision.card.reference import load_card_reference
     from tubevision.measure import measure_tube, mm_per_px_at
 
-    tubes = (TubeSpec("black-precipitate"), TubeSpec("white-precipitate"))
-    silent = []
+    tubes = (TubeSpec("black-precipitate"), TubeSpec("white-precipitate"), TubeSpec("water"))
+    wrong = []
     for shift in np.arange(0.0, 8.0, 0.5):
         r = render_scene(SceneSpec(tubes=tubes, backdrop="hbands", width_px=1344, height_px=1008,
-                                   band_shift_mm=float(shift)), seed=7)
+                                   band_shift_mm=float(shift)), seed=3)
         det = find_card(r.pixels)
         corr = fit_card_correction(det, load_card_reference(None))
         for g, t in zip(_regions(r.truth), r.truth["tubes"]):
             p = measure_tube(r.pixels, g, correction=corr,
                              mm_per_px=mm_per_px_at(det.homography_mm_to_px, (g.axis_col, g.inner_bottom))).pellet
+            if t["contents"] == "water":
+                if p.present:
+                    wrong.append(("water read as a solid", float(shift)))
+                continue
             flag = p.dark_solid_hidden if t["contents"] == "black-precipitate" else p.light_solid_hidden
             if not (p.present or flag):
-                silent.append((t["contents"], float(shift)))
-    assert not silent, silent
+                wrong.append((t["contents"], float(shift)))
+    assert not wrong, wrong
