@@ -125,8 +125,11 @@ def observe(t: dict, index: int, rng: np.random.Generator, slips: bool) -> TubeO
         if slips and rng.random() < 0.02:
             word = WORD_SLIP.get(word, word)
         return TubeObservation(index, state, conf, liquid_lab, liquid_word, turb, True,
-                               max(0.1, height + float(rng.normal(0, 0.1))), p_lab, word)
-    return TubeObservation(index, state, conf, liquid_lab, liquid_word, turb, False, None, None, None)
+                               max(0.1, height + float(rng.normal(0, 0.1))), p_lab, word,
+                               turbidity_sd=TURBIDITY_SD)
+    # the measured turbidity comes with its standard uncertainty, as the measure stage gives it
+    return TubeObservation(index, state, conf, liquid_lab, liquid_word, turb, False, None, None, None,
+                           turbidity_sd=TURBIDITY_SD)
 
 
 def steps_run(ions: set[str]) -> list[str]:

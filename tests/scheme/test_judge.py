@@ -142,6 +142,34 @@ def test_retake_asked_only_where_the_other_band_could_change_the_judgement():
     assert _verdicts(j)["unknown A"] == "negative" and j.retake_positions == ()
 
 
+def test_state_word_contradicted_by_the_measured_turbidity_is_not_judged():
+    # The state word is a classifier's; the turbidity a physical measure of scattered light.
+    # A spoiled control (the HCl replaced by water) whose clear liquid the classifier called
+    # "cloudy" (white) while nothing scatters must not pass: the bench's photo pass let such
+    # a control through. Clear-but-scattering is refused the same way.
+    spoiled = cloudy(0, turbidity=0.0)
+    j = judge_step(G1, "chloride-precipitation", [spoiled, settled(1, *WHITE), clear(2)], LABELS3)
+    assert j.failed and j.control_failures[0].position == 1
+    assert "no scattered light" in j.control_failures[0].reason
+    assert _verdicts(j)["unknown A"] == "inconclusive"
+    # a sample: "cloudy" without scattering is no precipitate, nor is it evidence of none
+    j = judge_step(G1, "chloride-precipitation", [settled(0, *WHITE), cloudy(1, turbidity=0.005), clear(2)], LABELS3)
+    assert _verdicts(j)["unknown A"] == "inconclusive" and not j.failed
+    # "clear" over a liquid that scatters plainly (a faint cloud the classifier missed)
+    j = judge_step(G1, "chloride-precipitation", [settled(0, *WHITE), clear(1, turbidity=0.4), clear(2)], LABELS3)
+    assert _verdicts(j)["unknown A"] == "inconclusive"
+    # a measured cloud, and a cloudy word over a settled solid, are judged as before
+    j = judge_step(G1, "chloride-precipitation", [cloudy(0), cloudy(1, pellet=WHITE, turbidity=0.0), clear(2)],
+                   LABELS3)
+    assert _verdicts(j) == {"control": "positive", "unknown A": "positive", "blank": "negative"}
+    # the margin is two standard uncertainties of the turbidity when it has one
+    import dataclasses
+
+    unsure = dataclasses.replace(cloudy(1, turbidity=0.01), turbidity_sd=0.02)
+    j = judge_step(G1, "chloride-precipitation", [settled(0, *WHITE), unsure, clear(2)], LABELS3)
+    assert _verdicts(j)["unknown A"] == "positive"
+
+
 def test_cloudy_blank_fails_and_is_diagnosed():
     obs = [settled(0, *WHITE), clear(1), cloudy(2, turbidity=0.3)]
     j = judge_step(G1, "chloride-precipitation", obs, LABELS3)

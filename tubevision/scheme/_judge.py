@@ -367,10 +367,47 @@ def _holds(cond: Condition, obs: TubeObservation, q: dict) -> tuple[bool | None,
     return True, []
 
 
+CLOUDY_MIN_TURBIDITY = 0.03
+"""Turbidity (record units) below which, by the measurement, a liquid scatters no light: a
+"cloudy" state word is then contradicted. Reason: between clear liquids' 95th percentile
+(~0.01) and the faintest cloud of the studio dilution series (~0.07) in
+bench/bench_measure.py (our threshold; revise with the measure stage)."""
+
+CLEAR_MAX_TURBIDITY = 0.05
+"""Turbidity (record units) above which, by the measurement, a liquid scatters light: a
+"clear" state word is then contradicted. Reason: the largest turbidity above the blank the
+bundled schemes accept for a liquid that "stays clear" (``max_turbidity_above_blank``)."""
+
+
+def _state_clash(obs: TubeObservation) -> str:
+    """Why the state word disagrees with the measured turbidity, or "" when it does not.
+
+    The state word comes from a learned classifier; the turbidity is a physical measure of
+    scattered light (measure stage). A liquid called cloudy that scatters nothing, or called
+    clear that plainly scatters, is a misreading either way, so neither appearance is
+    judged from it (a clear water control read "cloudy" passed a spoiled reagent). Only
+    where no solid is present (a settled solid under clear liquid is a cloudy slip's usual
+    truth, and the solid still speaks for itself) and the turbidity is measured; two
+    standard uncertainties of margin when it has one."""
+    if obs.turbidity is None or obs.pellet_present:
+        return ""
+    sd = 2.0 * (obs.turbidity_sd or 0.0)
+    if obs.state == "cloudy" and obs.turbidity + sd < CLOUDY_MIN_TURBIDITY:
+        return (f"state cloudy, but the measured turbidity {obs.turbidity:.3f} shows no scattered light "
+                f"(below {CLOUDY_MIN_TURBIDITY:g})")
+    if obs.state == "clear" and obs.turbidity - sd > CLEAR_MAX_TURBIDITY:
+        return (f"state clear, but the measured turbidity {obs.turbidity:.3f} shows scattered light "
+                f"(above {CLEAR_MAX_TURBIDITY:g})")
+    return ""
+
+
 def _pattern_verdict(step: Step, obs: TubeObservation, q: dict, min_conf: float) -> tuple[str, str]:
     """Verdict from the step's appearances and the confidence alone, with its reason."""
     if obs.confidence < min_conf:
         return "inconclusive", f"state confidence {obs.confidence:.2f} below {min_conf:.2f}"
+    clash = _state_clash(obs)
+    if clash:
+        return "inconclusive", clash
     pos, why_pos = _holds(step.positive.condition, obs, q)
     neg, why_neg = _holds(step.negative.condition, obs, q)
     if pos is True and neg is True:
