@@ -1118,6 +1118,29 @@ def _no_solid(cls_light: np.ndarray, cls_dark: np.ndarray, last_judged: int, wid
                              dark_solid_hidden=bool(banded and not light_seen))
 
 
+def _rows_that_show(b_y: np.ndarray, cls_light: np.ndarray, cls_dark: np.ndarray, shift: np.ndarray,
+                    banded: bool) -> tuple[np.ndarray, np.ndarray]:
+    """Rows where a black solid could show (light-band rows) and where a white one could
+    (dark-band rows), for :func:`_no_solid`: a row counts only when the backdrop beside the
+    tube stays on its side of the light/dark threshold (the geometric mean of the two band
+    levels, as :func:`_classify_rows` divides them) over every row within the registration
+    reach ``shift`` (per row, as :func:`_opacity_dev` allows it): otherwise the opacity
+    test can always read a solid there as the liquid over the other band. On narrow bands
+    (few pixels per band: a small or distant rack) that reach exceeds the band-edge margin
+    of :func:`_classify_rows`, and a light row next to a dark band showed nothing."""
+    if not banded or cls_light.sum() < 1 or cls_dark.sum() < 1:
+        return cls_light, cls_dark
+    thr = math.sqrt(max(float(np.median(b_y[cls_light])), 1e-6) * max(float(np.median(b_y[cls_dark])), 1e-6))
+    n = b_y.size
+    lo, hi = b_y.copy(), b_y.copy()
+    for s_ in range(1, int(np.max(shift)) + 1):
+        ok = s_ <= shift
+        for j in (np.clip(np.arange(n) - s_, 0, n - 1), np.clip(np.arange(n) + s_, 0, n - 1)):
+            lo = np.where(ok, np.minimum(lo, b_y[j]), lo)
+            hi = np.where(ok, np.maximum(hi, b_y[j]), hi)
+    return cls_light & (lo > thr), cls_dark & (hi < thr)
+
+
 def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_rows, banded, beside_y,
                  beside_rgb):
     """Settled solid at the bottom (module docstring). Returns (PelletMeasurement, info)."""
@@ -1202,6 +1225,7 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     # one run from the bottom upward
     skip = max(1, int(round(PELLET_BOTTOM_SKIP_FRACTION * width)))
     is_solid = (dev >= PELLET_MIN_OPACITY) & fin
+    shows = _rows_that_show(b_rows[:, 3], cls_light, cls_dark, shift, banded)
     unknown = ~fin
     # the lowest rows show the glass bottom's dark edge (refraction at grazing angles,
     # blur): they can neither confirm nor end a solid
@@ -1236,7 +1260,11 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
         dev_s = np.full(rows.size, np.inf)
         dev_s[low] = _opacity_dev(np.broadcast_to(ln_s, (int(low.sum()), 4)), ln_b[low], (t_c, s_c),
                                   k_lo[low], k_hi[low], shift[low])
-        unknown |= ~is_solid & (dev_s < PELLET_MIN_OPACITY)
+        # ... and rows that read nearer the solid's own reading than anything the liquid
+        # gives (a black solid over a dark band, just under the opacity threshold there) are
+        # the solid's as much as the liquid's: they do not end it either
+        d_solid = (np.abs(np.log(np.maximum(i4, 1e-4)) - ln_s) * PELLET_CHANNEL_WEIGHTS).max(axis=1)
+        unknown |= ~is_solid & ((dev_s < PELLET_MIN_OPACITY) | (low & (d_solid < dev)))
     unknown &= ~(textured & in_bottom)          # band texture seen: liquid, the walk ends there
     allowed = is_solid | unknown
     last = len(rows) - 1
@@ -1246,7 +1274,7 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     walked = np.arange(j + 1, last + 1)
     solid_idx = walked[is_solid[walked]]
     if solid_idx.size == 0:
-        return _no_solid(cls_light, cls_dark, rows.size - skip, width, mm_per_px, banded), info
+        return _no_solid(*shows, rows.size - skip, width, mm_per_px, banded), info
     top_j = int(solid_idx.min())
     start = int(solid_idx.max())
     run = slice(top_j, start + 1)
@@ -1313,7 +1341,7 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     min_px = PELLET_MIN_HEIGHT_PX if mm_per_px is None else max(PELLET_MIN_HEIGHT_PX - 1,
                                                                 PELLET_MIN_HEIGHT_MM / mm_per_px)
     if height_px < min_px or contrast < PELLET_MIN_CONTRAST_DE00 or follow > PELLET_MAX_BAND_FOLLOW:
-        return _no_solid(cls_light, cls_dark, rows.size - skip, width, mm_per_px, banded), info
+        return _no_solid(*shows, rows.size - skip, width, mm_per_px, banded), info
     # colour of the solid: the axis strip over the run, highlights out
     srows = rows[run][is_solid[run]]
     px = win.lin[srows, a0:a1].reshape(-1, 3)

@@ -92,17 +92,22 @@ def test_colour_within_a_few_de00_of_truth(measured):
     assert float(np.median(de)) < 1.5, de
 
 
-def test_a_solid_is_found_or_said_to_be_hidden_at_every_band_phase():
+@pytest.mark.parametrize("band_mm,seed", [(4.0, 3), (2.0, 12)])
+def test_a_solid_is_found_or_said_to_be_hidden_at_every_band_phase(band_mm, seed):
     """[synthetic] Whatever band lies behind a tube's bottom, a 2.5-3 mm settled solid is
     either found or reported as possibly hidden there (``dark_solid_hidden`` for a black
     one, ``light_solid_hidden`` for a white one): never silently missed, which would turn
     into a wrong 'absent' call; and clear water never shows a solid. The backdrop is moved
-    under the rack in 0.5 mm steps over one period of its 4 mm light and dark bands
-    (``band_shift_mm``). Before the band-edge rows were counted as hiding a black solid, a
+    under the rack in steps of an eighth of a band over one period of its light and dark
+    bands (``band_shift_mm``); the printable backdrop's 4 mm bands, and 2 mm ones, which
+    look as a 4 mm band does from twice as far (half the pixels per band). Before the band-edge rows were counted as hiding a black solid, a
     grey-black pellet over a dark band whose edge ran through it was missed with neither
     flag set at several of these phases; before the backdrop behind a row near an edge was
     allowed any fraction of a row out of register, the water read a 1 mm grey "solid" at
-    some (one opaque row half-way down a light-to-dark edge just above the glass bottom)."""
+    some (one opaque row half-way down a light-to-dark edge just above the glass bottom); on
+    the narrow bands a black solid was missed where its dark-band rows read just under the
+    opacity threshold (they ended the solid), or where its only light rows lay within the
+    registration reach of a dark band (they were counted as able to show it)."""
     from tubevision.card.detect import find_card
     from tubevision.card.fit import fit_card_correction
     from tubevision.card.reference import load_card_reference
@@ -110,9 +115,9 @@ def test_a_solid_is_found_or_said_to_be_hidden_at_every_band_phase():
 
     tubes = (TubeSpec("black-precipitate"), TubeSpec("white-precipitate"), TubeSpec("water"))
     wrong = []
-    for shift in np.arange(0.0, 8.0, 0.5):
+    for shift in np.arange(0.0, 2.0 * band_mm, band_mm / 8.0):
         r = render_scene(SceneSpec(tubes=tubes, backdrop="hbands", width_px=1344, height_px=1008,
-                                   band_shift_mm=float(shift)), seed=3)
+                                   band_mm=band_mm, band_shift_mm=float(shift)), seed=seed)
         det = find_card(r.pixels)
         corr = fit_card_correction(det, load_card_reference(None))
         for g, t in zip(_regions(r.truth), r.truth["tubes"]):
