@@ -422,7 +422,10 @@ class PelletMeasurement:
     ``light_solid_hidden`` (when none is found): the lowest rows, where a thin solid would
     sit, see only the light backdrop, so a white solid there could not be told apart from
     it (an opaque white layer reads like the liquid over white). ``dark_solid_hidden``
-    likewise: those rows see only a dark band, where a black solid would not show."""
+    likewise: those rows see only a dark band, where a black solid would not show.
+    ``seen_over_light``/``seen_over_dark`` (when one is found): rows of it in front of a
+    light (dark) band were confirmed as opaque there, so that band does not hide this solid
+    (a yellow solid shows its colour over the light band; a white one does not)."""
 
     present: bool
     height_mm: float | None = None
@@ -434,6 +437,8 @@ class PelletMeasurement:
     contrast_de00: float = 0.0
     light_solid_hidden: bool = False
     dark_solid_hidden: bool = False
+    seen_over_light: bool = False
+    seen_over_dark: bool = False
 
 
 @dataclass(frozen=True)
@@ -1360,7 +1365,9 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     return PelletMeasurement(present=True, height_mm=height_mm, height_mm_sd=height_sd,
                              lab=tuple(float(v) for v in lab), lab_sd=tuple(float(v) for v in sd),
                              n_pixels=int(px.shape[0]), height_px=float(height_px),
-                             contrast_de00=contrast), info
+                             contrast_de00=contrast,
+                             seen_over_light=bool((is_solid[run] & shows[0][run]).any()),
+                             seen_over_dark=bool((is_solid[run] & shows[1][run]).any())), info
 
 
 def _tube_edge_width(y_win, region, win) -> float:

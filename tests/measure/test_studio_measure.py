@@ -131,3 +131,30 @@ def test_a_solid_is_found_or_said_to_be_hidden_at_every_band_phase(band_mm, seed
             if not (p.present or flag):
                 wrong.append((t["contents"], float(shift)))
     assert not wrong, wrong
+
+
+def test_a_solid_seen_against_a_light_band_is_said_so_and_a_white_one_never():
+    """[synthetic] ``seen_over_light`` says a found solid was confirmed opaque in front of a
+    light band, which the judge takes as proof that the band hides no such solid in another
+    tube; so it must never be said of a white solid (it reads like the light band there), and
+    is said of a yellow one (its colour shows; studio yellow precipitate) wherever its
+    bottom rows stand in front of a light band. Backdrop moved in 1 mm steps over a period."""
+    from tubevision.card.detect import find_card
+    from tubevision.card.fit import fit_card_correction
+    from tubevision.card.reference import load_card_reference
+    from tubevision.measure import measure_tube, mm_per_px_at
+
+    tubes = (TubeSpec("yellow-precipitate"), TubeSpec("white-precipitate"))
+    yellow_seen = 0
+    for shift in np.arange(0.0, 8.0, 1.0):
+        r = render_scene(SceneSpec(tubes=tubes, backdrop="hbands", width_px=1344, height_px=1008,
+                                   band_shift_mm=float(shift)), seed=5)
+        det = find_card(r.pixels)
+        corr = fit_card_correction(det, load_card_reference(None))
+        yellow, white = (measure_tube(r.pixels, g, correction=corr,
+                                      mm_per_px=mm_per_px_at(det.homography_mm_to_px, (g.axis_col, g.inner_bottom))).pellet
+                         for g in _regions(r.truth))
+        assert not (white.present and white.seen_over_light), shift
+        assert yellow.present, shift
+        yellow_seen += yellow.seen_over_light
+    assert yellow_seen >= 3, yellow_seen          # half the phases put light rows behind it

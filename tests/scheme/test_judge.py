@@ -170,6 +170,36 @@ def test_state_word_contradicted_by_the_measured_turbidity_is_not_judged():
     assert _verdicts(j)["unknown A"] == "positive"
 
 
+def test_no_solid_stands_where_the_controls_solid_was_seen_against_the_same_band():
+    # The chromate step's yellow solid (PbCrO4, common practice) shows its colour in front of
+    # a light band, where a white one reads like the liquid. When the control's solid was
+    # confirmed opaque there (measure: seen_over_light), a sample's bottom in front of a light
+    # band hides nothing: its "no solid" is a negative, and no retake is asked for.
+    import dataclasses
+
+    chromate = clear(1, CHROMATE_YELLOW, "yellow")
+    hidden = dataclasses.replace(chromate, light_solid_hidden=True)
+    ctrl = settled(0, *YELLOW, liquid_lab=CHROMATE_YELLOW, liquid_name="yellow")
+    blank = clear(2, CHROMATE_YELLOW, "yellow")
+    j = judge_step(G1, "chromate-test", [ctrl, hidden, blank], LABELS3)
+    assert _verdicts(j)["unknown A"] == "inconclusive" and j.retake_positions == (2,)
+    seen = dataclasses.replace(ctrl, pellet_seen_over_light=True)
+    j = judge_step(G1, "chromate-test", [seen, hidden, blank], LABELS3)
+    assert _verdicts(j)["unknown A"] == "negative" and j.retake_positions == ()
+    # seen over a dark band says nothing about the light band
+    j = judge_step(G1, "chromate-test", [dataclasses.replace(ctrl, pellet_seen_over_dark=True), hidden, blank],
+                   LABELS3)
+    assert _verdicts(j)["unknown A"] == "inconclusive"
+    # the flag comes from the measurement (observation_from) and the record
+    m = SimpleNamespace(index=0, empty=False, liquid=SimpleNamespace(lab=CHROMATE_YELLOW, turbidity=0.0),
+                        pellet=SimpleNamespace(present=True, height_mm=2.0, lab=YELLOW[1], seen_over_light=True))
+    c = SimpleNamespace(state="settled", confidence=0.9, liquid_colour_name="yellow", pellet_colour_name="yellow")
+    assert observation_from(m, c).pellet_seen_over_light
+    rec = {"index": 0, "state": "settled", "confidence": 0.9, "liquid": {"lab": list(CHROMATE_YELLOW)},
+           "pellet": {"present": True, "height_mm": 2.0, "lab": list(YELLOW[1]), "seen_over_light": True}}
+    assert observation_from_record(rec).pellet_seen_over_light
+
+
 def test_cloudy_blank_fails_and_is_diagnosed():
     obs = [settled(0, *WHITE), clear(1), cloudy(2, turbidity=0.3)]
     j = judge_step(G1, "chloride-precipitation", obs, LABELS3)

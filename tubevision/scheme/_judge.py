@@ -76,6 +76,9 @@ class TubeObservation:
         backdrop, where a white solid would not show (measure stage).
     dark_solid_hidden : bool — no solid found, but the bottom showed only a dark band,
         where a black solid would not show (measure stage).
+    pellet_seen_over_light, pellet_seen_over_dark : bool — a solid was found, and rows of it
+        in front of a light (dark) band were confirmed opaque there: that band does not hide
+        it (measure stage's ``seen_over_light``/``seen_over_dark``).
     """
 
     index: int
@@ -91,6 +94,8 @@ class TubeObservation:
     turbidity_sd: float | None = None
     light_solid_hidden: bool = False
     dark_solid_hidden: bool = False
+    pellet_seen_over_light: bool = False
+    pellet_seen_over_dark: bool = False
 
 
 def _lab_or_none(v) -> tuple[float, float, float] | None:
@@ -134,6 +139,8 @@ def observation_from(measurement: Any, call: Any) -> TubeObservation:
         turbidity_sd=_num_or_none(getattr(liq, "turbidity_sd", None)) if liq is not None else None,
         light_solid_hidden=bool(getattr(pel, "light_solid_hidden", False)) and not present,
         dark_solid_hidden=bool(getattr(pel, "dark_solid_hidden", False)) and not present,
+        pellet_seen_over_light=bool(getattr(pel, "seen_over_light", False)) and present,
+        pellet_seen_over_dark=bool(getattr(pel, "seen_over_dark", False)) and present,
     )
 
 
@@ -152,6 +159,8 @@ def observation_from_record(tube: dict) -> TubeObservation:
         turbidity_sd=_num_or_none(liq.get("turbidity_sd")),
         light_solid_hidden=bool(pel.get("light_solid_hidden", False)) and not present,
         dark_solid_hidden=bool(pel.get("dark_solid_hidden", False)) and not present,
+        pellet_seen_over_light=bool(pel.get("seen_over_light", False)) and present,
+        pellet_seen_over_dark=bool(pel.get("seen_over_dark", False)) and present,
     )
 
 
@@ -524,12 +533,19 @@ def _hidden(obs: TubeObservation, kind: str) -> bool:
 
 
 def _control_solid_is(obs_list, roles, kind: str) -> bool:
-    """Whether a positive control in the photo shows a ``kind`` ("light"/"dark") settled solid."""
+    """Whether a positive control in the photo shows a ``kind`` ("light"/"dark") settled solid
+    that the band of that shade could hide: one not confirmed opaque in front of such a band
+    in this photo. A control's light solid confirmed opaque in front of a light band (a
+    yellow one shows its colour there; a white one does not) shows that this step's solid is
+    seen against that band, so a sample's bottom in front of one hides nothing."""
     is_kind = _HIDING[kind][2]
     for pos, role in roles.items():
         o = obs_list[pos - 1]
         if role == "control" and o.pellet_present and o.pellet_lab is not None and is_kind(o.pellet_lab[0]):
-            return True
+            # a dark solid in front of a dark band differs from it only by the little light
+            # the band sends back (near the camera's flare): not relied on for another tube
+            if not (kind == "light" and o.pellet_seen_over_light):
+                return True
     return False
 
 
