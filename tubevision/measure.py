@@ -1108,12 +1108,13 @@ def _no_solid(cls_light: np.ndarray, cls_dark: np.ndarray, last_judged: int, wid
 
     A solid shows only over rows where the backdrop is plainly the other shade: a white one
     over dark-band rows (``cls_dark``), a black one over light-band rows (``cls_light``;
-    every row of a plain backdrop). Rows near a band edge are neither: there the backdrop
-    beside the tube changes within the few rows by which the view through the tube may be
-    out of register with it (:data:`PELLET_ROW_SHIFT_FRACTION`, the round bottom's lens), so
-    a solid there can always be read as the liquid over the other band; rows hidden by
-    something in front are neither either. So each flag is raised when the zone holds no row
-    that would show that solid: the same test both ways."""
+    every row of a plain backdrop); :func:`_rows_that_show` gives them. Rows near a band
+    edge are neither: there the backdrop beside the tube changes within the few rows by
+    which the view through the tube may be out of register with it
+    (:data:`PELLET_ROW_SHIFT_FRACTION`, the round bottom's lens), so a solid there can always
+    be read as the liquid over the other band; rows hidden by something in front are neither
+    either. So each flag is raised when the zone holds no row that would show that solid:
+    the same test both ways."""
     zone = (HIDDEN_SOLID_ZONE_MM / mm_per_px if mm_per_px else HIDDEN_SOLID_ZONE_FRACTION * width)
     lo = max(0, int(last_judged - max(2, round(zone))))
     sel = slice(lo, max(lo + 1, last_judged))

@@ -200,6 +200,35 @@ def test_no_solid_stands_where_the_controls_solid_was_seen_against_the_same_band
     assert observation_from_record(rec).pellet_seen_over_light
 
 
+def test_blank_clear_by_its_measurements_is_judged_despite_a_doubtful_word():
+    # A blank guards against contamination, which shows as a solid or a cloud; the measure
+    # stage tests both physically. A blank the classifier calls clear at 0.48 (under the
+    # scheme's 0.5) with no solid and no scattered light passes; samples stay inconclusive.
+    import dataclasses
+
+    doubt = clear(2, turbidity=0.0, confidence=0.48)
+    j = judge_step(G1, "ammonia-treatment", [settled(0, *BLACK), settled(1, *BLACK), doubt], LABELS3)
+    assert _verdicts(j) == {"control": "positive", "unknown A": "positive", "blank": "negative"} and not j.failed
+    # not when it scatters light, shows a solid, or is called something else
+    for bad in (clear(2, turbidity=0.04, confidence=0.48), cloudy(2, turbidity=0.0, confidence=0.48),
+                dataclasses.replace(doubt, pellet_present=True, pellet_height_mm=0.8, pellet_lab=BLACK[1],
+                                    pellet_colour_name="black")):
+        j = judge_step(G1, "ammonia-treatment", [settled(0, *BLACK), settled(1, *BLACK), bad], LABELS3)
+        assert j.failed and j.control_failures[0].role == "blank"
+    # not when its bottom stood where the control's kind of solid could hide
+    hidden = dataclasses.replace(doubt, dark_solid_hidden=True)
+    j = judge_step(G1, "ammonia-treatment", [settled(0, *BLACK), settled(1, *BLACK), hidden], LABELS3)
+    assert j.failed
+    # a light-band bottom hides nothing a black solid could be: judged
+    light = dataclasses.replace(doubt, light_solid_hidden=True)
+    j = judge_step(G1, "ammonia-treatment", [settled(0, *BLACK), settled(1, *BLACK), light], LABELS3)
+    assert not j.failed
+    # a sample's doubtful word is still inconclusive
+    j = judge_step(G1, "ammonia-treatment", [settled(0, *BLACK), clear(1, turbidity=0.0, confidence=0.48),
+                                              clear(2)], LABELS3)
+    assert _verdicts(j)["unknown A"] == "inconclusive"
+
+
 def test_cloudy_blank_fails_and_is_diagnosed():
     obs = [settled(0, *WHITE), clear(1), cloudy(2, turbidity=0.3)]
     j = judge_step(G1, "chloride-precipitation", obs, LABELS3)

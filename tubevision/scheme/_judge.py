@@ -410,6 +410,21 @@ def _state_clash(obs: TubeObservation) -> str:
     return ""
 
 
+def _measured_clear(obs: TubeObservation) -> bool:
+    """Whether the measurements alone show a clear liquid with nothing settled, as the word
+    "clear" says: no solid found and the turbidity below :data:`CLOUDY_MIN_TURBIDITY` by two
+    standard uncertainties. A blank's check is one-sided (a contaminated reagent shows as a
+    solid or a cloud), and these are the physical tests of both; so a blank that the
+    classifier calls clear with a confidence just under the scheme's ``min_confidence`` is
+    still judged when they agree and its bottom did not stand where the step's solid, of the
+    control's shade, could hide (:func:`judge_step`; in the bench, clear water blanks at
+    0.48-0.50 lost whole steps with "check the reagent"). Samples stay under the confidence
+    rule."""
+    if obs.state != "clear" or obs.pellet_present or obs.turbidity is None:
+        return False
+    return obs.turbidity + 2.0 * (obs.turbidity_sd or 0.0) < CLOUDY_MIN_TURBIDITY
+
+
 def _pattern_verdict(step: Step, obs: TubeObservation, q: dict, min_conf: float) -> tuple[str, str]:
     """Verdict from the step's appearances and the confidence alone, with its reason."""
     if obs.confidence < min_conf:
@@ -635,6 +650,14 @@ def judge_step(scheme: Scheme, step: str, observations: Sequence[TubeObservation
         pv = _position(st, obs, q, refs)
         q["position_blank_to_control"] = pv
         verdict, why = _pattern_verdict(st, obs, q, scheme.min_confidence)
+        if (role == "blank" and obs.confidence < scheme.min_confidence and _measured_clear(obs)
+                and not any(_hidden(obs, k) and _expects_solid(st.positive.condition, k)
+                            and ("control" not in by_role or _control_solid_is(obs_list, roles, k))
+                            for k in _HIDING)):
+            # the blank guards against a solid or a cloud; the measurements test both
+            v2, _ = _pattern_verdict(st, obs, q, 0.0)
+            if v2 == "negative":
+                verdict, why = v2, ""
         diag = _diagnose(scheme, st, role, obs, q)
         prelim[pos] = (verdict, why, q, diag)
         label = labels[pos]
