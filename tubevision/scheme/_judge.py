@@ -7,7 +7,10 @@ positive control and the blank photographed beside it.
 Rules (no chemistry here; every appearance comes from the scheme file):
 
 1. A tube whose state confidence is under the scheme's ``min_confidence`` is
-   inconclusive.
+   inconclusive (a blank excepted when its measurements alone show it clear with nothing
+   settled, :func:`_measured_clear`), and so is one whose state word the measured
+   turbidity contradicts (:func:`_state_clash`: "cloudy" with no scattered light, "clear"
+   plainly scattering).
 2. It is positive if it matches the step's positive appearance and not the
    negative one, negative the other way round; matching both or neither, or
    lacking a reference a threshold needs (no blank labelled…), is
