@@ -193,7 +193,8 @@ def photo_session(scheme, ions: set[str], seed: int, spoil_step: str | None = No
     With ``retake``, the analyst follows the tool's advice once: where a step's judgement
     asks for a new photo with the other band behind the tube bottoms
     (``StepJudgement.retake_positions``), the same scene is photographed again with the
-    rack moved by one band (``band_shift_mm = band_mm``), and both photos' records go to
+    rack moved as advised (``band_shift_mm = band_mm × retake_shift_bands``: one band, or half
+    a band for bottoms at a band edge), and both photos' records go to
     ``conclude`` (which sets aside a photo whose controls failed and needs the others to
     agree). A step counts as flagged when no photo of it passed its controls.
     """
@@ -229,7 +230,8 @@ def photo_session(scheme, ions: set[str], seed: int, spoil_step: str | None = No
                 continue
             shots = [a]
             if retake and a.judgement.retake_positions:
-                photo = render_scene(replace(spec, band_shift_mm=spec.band_mm), seed=seed * 10 + k)
+                photo = render_scene(replace(spec, band_shift_mm=spec.band_mm * a.judgement.retake_shift_bands),
+                                     seed=seed * 10 + k)
                 boxes = tuple(tuple(int(v) for v in tb["bbox"]) for tb in photo.truth["tubes"])
                 opts = replace(opts, layout_boxes=boxes if truth_boxes else None)
                 try:
@@ -270,7 +272,7 @@ def _photo_pass(scheme, subsets, n: int, seed: int, truth_boxes: bool, retake: b
     t0 = time.perf_counter()
     how = ("analyze_photo + build_record" + (", truth boxes as layout" if truth_boxes else ", tubes found")
            if _have_card() else "no card stage yet: truth boxes, uncalibrated measure + classify + judge_step")
-    how += ("; a step whose judgement asks for it photographed again once, rack moved by one band"
+    how += ("; a step whose judgement asks for it photographed again once, rack moved as advised"
             if retake else "; one photo per step")
     if band_mm is not None:
         how += f"; backdrop bands {band_mm:g} mm"

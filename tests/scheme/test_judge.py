@@ -140,6 +140,15 @@ def test_retake_asked_only_where_the_other_band_could_change_the_judgement():
     j = judge_step(G1, "acidification", [cloudy(0), dataclasses.replace(clear(1), light_solid_hidden=True),
                                          clear(2)], LABELS3)
     assert _verdicts(j)["unknown A"] == "negative" and j.retake_positions == ()
+    # bottoms at a band edge (both flags: neither shade behind them) are moved by half a band,
+    # since a whole band's move puts them at the next edge; one shade behind: a whole band
+    j = judge_step(G1, "chloride-precipitation", [settled(0, *WHITE), settled(1, *WHITE), light_blank], LABELS3)
+    assert j.retake_shift_bands == 1.0
+    edge = dataclasses.replace(light_blank, dark_solid_hidden=True)
+    edge_sample = dataclasses.replace(clear(1), light_solid_hidden=True, dark_solid_hidden=True)
+    j = judge_step(G1, "chloride-precipitation", [settled(0, *WHITE), edge_sample, edge], LABELS3)
+    assert j.retake_positions == (2, 3) and j.retake_shift_bands == 0.5
+    assert any("half a band" in w for w in j.warnings)
 
 
 def test_state_word_contradicted_by_the_measured_turbidity_is_not_judged():

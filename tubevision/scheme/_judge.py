@@ -243,6 +243,10 @@ class StepJudgement:
     """1-based positions of labelled tubes whose bottoms showed only the band that would hide
     the solid this step looks for (light for a white solid, dark for a black one): photograph
     again with the other band behind them."""
+    retake_shift_bands: float = 1.0
+    """How far to move the rack against the backdrop for that photo, in band widths: 1, or
+    0.5 when most of those tubes' bottoms stood at a band edge (neither shade behind them:
+    both hidden-solid flags), where a whole band's move puts them at the next edge."""
 
     @property
     def failed(self) -> bool:
@@ -749,13 +753,19 @@ def judge_step(scheme: Scheme, step: str, observations: Sequence[TubeObservation
                             + f" in front of a {'light' if kind == 'light' else 'dark'} band only, where the "
                               f"{kind} solid this step looks for would not show: move the rack so a "
                               f"{_HIDING[kind][3]} band is behind the bottoms and photograph again")
+    at_edge = [pos for pos in retake if obs_list[pos - 1].light_solid_hidden and obs_list[pos - 1].dark_solid_hidden]
+    shift_bands = 0.5 if retake and 2 * len(at_edge) > len(retake) else 1.0
+    if shift_bands == 0.5:
+        warnings.append(f"{where}: " + ", ".join(f"T{p}" for p in sorted(at_edge))
+                        + (" has its bottom" if len(at_edge) == 1 else " have their bottoms")
+                        + " at a band's edge, in front of neither shade: move the rack by half a band")
     for f in failures:
         warnings.append(f"{where}: {f}")
     summary = scheme_summary(scheme)
     return StepJudgement(scheme_name=scheme.name, scheme_source=summary["source"], scheme_file=summary["file"],
                          scheme_sha256=scheme.sha256, step=st.name, outcomes=tuple(outcomes),
                          control_failures=tuple(failures), warnings=tuple(dict.fromkeys(warnings)),
-                         retake_positions=tuple(sorted(retake)),
+                         retake_positions=tuple(sorted(retake)), retake_shift_bands=shift_bands,
                          step_info={"title": st.title, "reagent": st.reagent, "fraction": st.fraction,
                                     "source": st.source, "reactions": list(st.reactions),
                                     "hazards": list(st.hazards), "safety": " ".join(scheme.safety.split())})
