@@ -125,8 +125,11 @@ def observe(t: dict, index: int, rng: np.random.Generator, slips: bool) -> TubeO
         if slips and rng.random() < 0.02:
             word = WORD_SLIP.get(word, word)
         return TubeObservation(index, state, conf, liquid_lab, liquid_word, turb, True,
-                               max(0.1, height + float(rng.normal(0, 0.1))), p_lab, word)
-    return TubeObservation(index, state, conf, liquid_lab, liquid_word, turb, False, None, None, None)
+                               max(0.1, height + float(rng.normal(0, 0.1))), p_lab, word,
+                               turbidity_sd=TURBIDITY_SD)
+    # the measured turbidity comes with its standard uncertainty, as the measure stage gives it
+    return TubeObservation(index, state, conf, liquid_lab, liquid_word, turb, False, None, None, None,
+                           turbidity_sd=TURBIDITY_SD)
 
 
 def steps_run(ions: set[str]) -> list[str]:
@@ -178,7 +181,8 @@ def _have_card() -> bool:
 
 
 def photo_session(scheme, ions: set[str], seed: int, spoil_step: str | None = None, *,
-                  size=(1344, 1008), truth_boxes: bool = False, retake: bool = False):
+                  size=(1344, 1008), truth_boxes: bool = False, retake: bool = False,
+                  band_mm: float | None = None):
     """One sample through the scheme on rendered photos and the pipeline.
 
     With the card stage present: ``analyze_photo`` → ``build_record`` (tubes
@@ -187,9 +191,12 @@ def photo_session(scheme, ions: set[str], seed: int, spoil_step: str | None = No
     judge: the scheme stage on real measurements, the card left out.
 
     With ``retake``, the analyst follows the tool's advice once: where a step's judgement
-    asks for a new photo with a dark band behind the tube bottoms
+    asks for a new photo with the other band behind the tube bottoms
     (``StepJudgement.retake_positions``), the same scene is photographed again with the
-    rack moved by one band (``band_shift_mm = band_mm``), and that photo's record is used.
+    rack moved as advised (``band_shift_mm = band_mm × retake_shift_bands``: one band, or half
+    a band for bottoms at a band edge), and both photos' records go to
+    ``conclude`` (which sets aside a photo whose controls failed and needs the others to
+    agree). A step counts as flagged when no photo of it passed its controls.
     """
     from tubevision.image import photo_from_array
     from tubevision.studio import SceneSpec, TubeSpec, render_scene
@@ -204,6 +211,8 @@ def photo_session(scheme, ions: set[str], seed: int, spoil_step: str | None = No
                                 TubeSpec(_studio_contents(truth(step, set())), label="blank")),
                          width_px=size[0], height_px=size[1], backdrop="hbands",
                          scenario=f"bench: group1 {step}, sample {'+'.join(sorted(ions)) or 'none'}")
+        if band_mm is not None:
+            spec = spec.with_(band_mm=band_mm)
         photo = render_scene(spec, seed=seed * 10 + k)
         boxes = tuple(tuple(int(v) for v in tb["bbox"]) for tb in photo.truth["tubes"])
         if full:
@@ -216,17 +225,24 @@ def photo_session(scheme, ions: set[str], seed: int, spoil_step: str | None = No
                                    layout_boxes=boxes if truth_boxes else None)
             try:
                 a = analyze_photo(photo_from_array(photo.upright, name=f"{step}.png"), opts, scheme=scheme)
-                if retake and a.judgement.retake_positions:
-                    photo = render_scene(replace(spec, band_shift_mm=spec.band_mm), seed=seed * 10 + k)
-                    boxes = tuple(tuple(int(v) for v in tb["bbox"]) for tb in photo.truth["tubes"])
-                    opts = replace(opts, layout_boxes=boxes if truth_boxes else None)
-                    a = analyze_photo(photo_from_array(photo.upright, name=f"{step}-again.png"), opts,
-                                      scheme=scheme)
             except TubevisionInputError:  # fewer tubes found than labelled: this step is lost
                 flagged[step] = True
                 continue
-            flagged[step] = tuple(f.cause for f in a.judgement.control_failures)
-            records.append(build_record(a))
+            shots = [a]
+            if retake and a.judgement.retake_positions:
+                photo = render_scene(replace(spec, band_shift_mm=spec.band_mm * a.judgement.retake_shift_bands),
+                                     seed=seed * 10 + k)
+                boxes = tuple(tuple(int(v) for v in tb["bbox"]) for tb in photo.truth["tubes"])
+                opts = replace(opts, layout_boxes=boxes if truth_boxes else None)
+                try:
+                    shots.append(analyze_photo(photo_from_array(photo.upright, name=f"{step}-again.png"), opts,
+                                               scheme=scheme))
+                except TubevisionInputError:  # the second photo is lost; the first one stands
+                    pass
+            # the step is flagged when no photo of it passed its controls
+            causes = [tuple(f.cause for f in s.judgement.control_failures) for s in shots]
+            flagged[step] = tuple(c for cs in causes for c in cs) if all(causes) else ()
+            records.extend(build_record(s) for s in shots)
         else:
             from tubevision import measure, tubes
             from tubevision.classify import classify_tube
@@ -246,23 +262,26 @@ def photo_session(scheme, ions: set[str], seed: int, spoil_step: str | None = No
     return conclude(records), flagged
 
 
-def photo_bench(scheme, subsets, n: int, seed: int, truth_boxes: bool) -> None:
+def photo_bench(scheme, subsets, n: int, seed: int, truth_boxes: bool, band_mm: float | None = None) -> None:
     for retake in (False, True):
-        _photo_pass(scheme, subsets, n, seed, truth_boxes, retake)
+        _photo_pass(scheme, subsets, n, seed, truth_boxes, retake, band_mm)
 
 
-def _photo_pass(scheme, subsets, n: int, seed: int, truth_boxes: bool, retake: bool) -> None:
+def _photo_pass(scheme, subsets, n: int, seed: int, truth_boxes: bool, retake: bool,
+                band_mm: float | None = None) -> None:
     t0 = time.perf_counter()
     how = ("analyze_photo + build_record" + (", truth boxes as layout" if truth_boxes else ", tubes found")
            if _have_card() else "no card stage yet: truth boxes, uncalibrated measure + classify + judge_step")
-    how += ("; a step whose judgement asks for it photographed again once, rack moved by one band"
+    how += ("; a step whose judgement asks for it photographed again once, rack moved as advised"
             if retake else "; one photo per step")
+    if band_mm is not None:
+        how += f"; backdrop bands {band_mm:g} mm"
     print(f"  photos ({how}):")
     calls = correct = wrong = inconc = false_flags = photo_flags = 0
     for s_i, ions in enumerate(subsets):
         for r in range(n):
             out, flagged = photo_session(scheme, ions, seed + 1000 * s_i + r, truth_boxes=truth_boxes,
-                                         retake=retake)
+                                         retake=retake, band_mm=band_mm)
             false_flags += sum(bool(v) for v in flagged.values())
             photo_flags += sum(isinstance(v, tuple) and "photo" in v for v in flagged.values())
             for ion, call in out["samples"]["sample"]["calls"].items():
@@ -279,7 +298,7 @@ def _photo_pass(scheme, subsets, n: int, seed: int, truth_boxes: bool, retake: b
     for k, step in enumerate(STEPS):
         for r in range(n):
             _, flagged = photo_session(scheme, set(GROUP1), seed + 50000 + 100 * k + r, spoil_step=step,
-                                       truth_boxes=truth_boxes, retake=retake)
+                                       truth_boxes=truth_boxes, retake=retake, band_mm=band_mm)
             n_sp += 1
             n_flag += bool(flagged[step])
     print(f"    spoiled controls {n_sp}; flagged {n_flag} ({100 * n_flag / n_sp:.1f} %, target 100 %); "
@@ -292,6 +311,8 @@ def main(argv=None) -> int:
     ap.add_argument("--photos", type=int, default=0, help="rendered photo series per ion subset (default 0)")
     ap.add_argument("--truth-boxes", action="store_true", help="photos: give the true tube boxes as a layout")
     ap.add_argument("--seed", type=int, default=20260504, help="random seed (default fixed)")
+    ap.add_argument("--band-mm", type=float, default=None,
+                    help="photos: width of the backdrop's bands in mm (default the printable backdrop's)")
     a = ap.parse_args(argv)
     rng = np.random.default_rng(a.seed)  # seeded: the figures are reproducible
     scheme = load_scheme("group1")
@@ -326,7 +347,7 @@ def main(argv=None) -> int:
     print(f"  spoiled controls: {n_sp}; flagged {n_flag} ({100 * n_flag / n_sp:.1f} %, target 100 %)")
     print(f"  time {time.perf_counter() - t0:.1f} s")
     if a.photos:
-        photo_bench(scheme, subsets, a.photos, a.seed, a.truth_boxes)
+        photo_bench(scheme, subsets, a.photos, a.seed, a.truth_boxes, a.band_mm)
     return 0
 
 

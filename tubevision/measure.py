@@ -422,7 +422,10 @@ class PelletMeasurement:
     ``light_solid_hidden`` (when none is found): the lowest rows, where a thin solid would
     sit, see only the light backdrop, so a white solid there could not be told apart from
     it (an opaque white layer reads like the liquid over white). ``dark_solid_hidden``
-    likewise: those rows see only a dark band, where a black solid would not show."""
+    likewise: those rows see only a dark band, where a black solid would not show.
+    ``seen_over_light``/``seen_over_dark`` (when one is found): rows of it in front of a
+    light (dark) band were confirmed as opaque there, so that band does not hide this solid
+    (a yellow solid shows its colour over the light band; a white one does not)."""
 
     present: bool
     height_mm: float | None = None
@@ -434,6 +437,8 @@ class PelletMeasurement:
     contrast_de00: float = 0.0
     light_solid_hidden: bool = False
     dark_solid_hidden: bool = False
+    seen_over_light: bool = False
+    seen_over_dark: bool = False
 
 
 @dataclass(frozen=True)
@@ -995,9 +1000,14 @@ def _opacity_dev(ln_i, ln_b, model, k_lo, k_hi, shift) -> np.ndarray:
     I = B·T^k + S·g with g anywhere between k (thin veil, growing with the path) and 1
     (saturated veil): Beer–Lambert for T, the two limits of a scattering layer for S. Returned: the smallest max-channel
     |difference| (channels weighted by :data:`PELLET_CHANNEL_WEIGHTS`) over k (a grid of
-    :data:`PELLET_K_STEPS`) and over the beside readings up to ``shift`` rows away (per
-    row): the view through the tube and the strip beside it may be out of register by a
-    pixel or two at band edges (lean, parallax, the tube's own lens).
+    :data:`PELLET_K_STEPS`) and over the backdrop behind the row: the view through the tube
+    and the strip beside it may be out of register by up to ``shift`` rows (per row) at band
+    edges (lean, parallax, the tube's own lens), by any fraction of a row, so the backdrop
+    behind a row near an edge is taken as anywhere between the least and the most of the
+    beside readings within that reach (I grows with B, so the liquid's readings then span
+    [I(B_min) thin, I(B_max) saturated]). Whole-row registrations alone miss the readings
+    half-way down an edge: clear water read one opaque row per light-to-dark edge, and a
+    water blank showed a 1 mm "solid" where one such row sat just above the glass bottom.
     Absorbances are capped at :data:`PELLET_MAX_ABSORBANCE`: below ~5 % transmission a
     camera's flare, noise and tone curve leave no reliable reading (common practice).
     """
@@ -1009,20 +1019,23 @@ def _opacity_dev(ln_i, ln_b, model, k_lo, k_hi, shift) -> np.ndarray:
     t_c, s_c = model
     ln_t = np.log(np.maximum(np.asarray(t_c, float), 1e-6))
 
-    def dev_at(rows_i, j):
-        # predicted light through the liquid over the chord ratio k, given the backdrop
-        # reading of row j: I = B·T^k + S·g, the veil g between k (thin) and 1 (saturated)
+    def dev_at(rows_i, lb_lo, lb_hi):
+        # predicted light through the liquid over the chord ratio k, given a backdrop between
+        # exp(lb_lo) and exp(lb_hi): I = B·T^k + S·g, the veil g between k (thin) and 1
+        # (saturated); the least with the darkest backdrop, the most with the lightest
         k = kk[rows_i]                                                     # (m, K)
-        direct = np.exp(ln_b[j])[:, None, :] * np.exp(k[:, :, None] * ln_t[None, None, :])   # (m, K, C)
-        floor = (ln_b[j] - PELLET_MAX_ABSORBANCE)[:, None, :]
-        lo = np.maximum(np.log(np.maximum(direct + s_c * k[:, :, None], 1e-6)), floor)       # thin veil
-        hi = np.maximum(np.log(np.maximum(direct + s_c[None, None, :], 1e-6)), floor)       # saturated
-        obs = np.maximum(ln_i[rows_i], ln_b[j] - PELLET_MAX_ABSORBANCE)[:, None, :]  # darker reads as the cap
+        t_k = np.exp(k[:, :, None] * ln_t[None, None, :])                  # (m, K, C)
+        floor = (lb_lo - PELLET_MAX_ABSORBANCE)[:, None, :]
+        lo = np.maximum(np.log(np.maximum(np.exp(lb_lo)[:, None, :] * t_k + s_c * k[:, :, None], 1e-6)),
+                        floor)                                                                # thin veil
+        hi = np.maximum(np.log(np.maximum(np.exp(lb_hi)[:, None, :] * t_k + s_c[None, None, :], 1e-6)),
+                        (lb_hi - PELLET_MAX_ABSORBANCE)[:, None, :])                         # saturated
+        obs = np.maximum(ln_i[rows_i][:, None, :], floor)                  # darker reads as the cap
         d = np.maximum(np.maximum(lo - obs, obs - hi), 0.0)                # outside [thin, saturated]
         return (d * w).max(axis=2).min(axis=1)
 
     idx = np.arange(n)
-    best = dev_at(idx, idx)
+    best = dev_at(idx, ln_b, ln_b)
     # other registrations matter only near a band edge (the backdrop changes within reach)
     m = int(shift.max())
     if m > 0 and n > 1:
@@ -1032,16 +1045,15 @@ def _opacity_dev(ln_i, ln_b, model, k_lo, k_hi, shift) -> np.ndarray:
         span = maximum_filter1d(y, 2 * m + 1, mode="nearest") - minimum_filter1d(y, 2 * m + 1, mode="nearest")
         near = np.flatnonzero(span > 0.5 * PELLET_MIN_OPACITY)
         if near.size:
-            sub = best[near]
-            # registrations a pixel apart give nearly the same reading on a large photo,
-            # where a band edge spans several pixels: try about seven of them (speed)
-            for s_ in range(-m, m + 1, max(1, -(-m // 3))):
+            lb_lo, lb_hi = ln_b[near].copy(), ln_b[near].copy()
+            for s_ in range(-m, m + 1):
                 if s_ == 0:
                     continue
-                ok = np.abs(s_) <= shift[near]
+                ok = (np.abs(s_) <= shift[near])[:, None]
                 j = np.clip(near + s_, 0, n - 1)
-                sub = np.where(ok, np.minimum(sub, dev_at(near, j)), sub)
-            best[near] = sub
+                lb_lo = np.where(ok, np.minimum(lb_lo, ln_b[j]), lb_lo)
+                lb_hi = np.where(ok, np.maximum(lb_hi, ln_b[j]), lb_hi)
+            best[near] = np.minimum(best[near], dev_at(near, lb_lo, lb_hi))
     return best
 
 
@@ -1088,17 +1100,51 @@ HIDDEN_SOLID_ZONE_FRACTION = 0.1
 for a 16 mm tube)."""
 
 
-def _no_solid(cls_dark: np.ndarray, last_judged: int, width: float, mm_per_px, banded: bool):
+def _no_solid(cls_light: np.ndarray, cls_dark: np.ndarray, last_judged: int, width: float, mm_per_px,
+              banded: bool):
     """No solid found; say whether a white one could hide against a light band, or a black
     one against a dark band (see :class:`PelletMeasurement`): common practice is to look at
-    a white precipitate against a dark background and a dark one against a light one, and
-    the zone here has no row of the one kind (light: plain backdrops too) or only dark ones."""
+    a white precipitate against a dark background and a dark one against a light one.
+
+    A solid shows only over rows where the backdrop is plainly the other shade: a white one
+    over dark-band rows (``cls_dark``), a black one over light-band rows (``cls_light``;
+    every row of a plain backdrop); :func:`_rows_that_show` gives them. Rows near a band
+    edge are neither: there the backdrop beside the tube changes within the few rows by
+    which the view through the tube may be out of register with it
+    (:data:`PELLET_ROW_SHIFT_FRACTION`, the round bottom's lens), so a solid there can always
+    be read as the liquid over the other band; rows hidden by something in front are neither
+    either. So each flag is raised when the zone holds no row that would show that solid:
+    the same test both ways."""
     zone = (HIDDEN_SOLID_ZONE_MM / mm_per_px if mm_per_px else HIDDEN_SOLID_ZONE_FRACTION * width)
     lo = max(0, int(last_judged - max(2, round(zone))))
-    z = cls_dark[lo:max(lo + 1, last_judged)]
-    dark_seen = bool(banded and z.any())
-    only_dark = bool(banded and z.size and z.all())
-    return PelletMeasurement(present=False, light_solid_hidden=not dark_seen, dark_solid_hidden=only_dark)
+    sel = slice(lo, max(lo + 1, last_judged))
+    dark_seen = bool(banded and cls_dark[sel].any())
+    light_seen = bool(cls_light[sel].any()) if banded else True
+    return PelletMeasurement(present=False, light_solid_hidden=not dark_seen,
+                             dark_solid_hidden=bool(banded and not light_seen))
+
+
+def _rows_that_show(b_y: np.ndarray, cls_light: np.ndarray, cls_dark: np.ndarray, shift: np.ndarray,
+                    banded: bool) -> tuple[np.ndarray, np.ndarray]:
+    """Rows where a black solid could show (light-band rows) and where a white one could
+    (dark-band rows), for :func:`_no_solid`: a row counts only when the backdrop beside the
+    tube stays on its side of the light/dark threshold (the geometric mean of the two band
+    levels, as :func:`_classify_rows` divides them) over every row within the registration
+    reach ``shift`` (per row, as :func:`_opacity_dev` allows it): otherwise the opacity
+    test can always read a solid there as the liquid over the other band. On narrow bands
+    (few pixels per band: a small or distant rack) that reach exceeds the band-edge margin
+    of :func:`_classify_rows`, and a light row next to a dark band showed nothing."""
+    if not banded or cls_light.sum() < 1 or cls_dark.sum() < 1:
+        return cls_light, cls_dark
+    thr = math.sqrt(max(float(np.median(b_y[cls_light])), 1e-6) * max(float(np.median(b_y[cls_dark])), 1e-6))
+    n = b_y.size
+    lo, hi = b_y.copy(), b_y.copy()
+    for s_ in range(1, int(np.max(shift)) + 1):
+        ok = s_ <= shift
+        for j in (np.clip(np.arange(n) - s_, 0, n - 1), np.clip(np.arange(n) + s_, 0, n - 1)):
+            lo = np.where(ok, np.minimum(lo, b_y[j]), lo)
+            hi = np.where(ok, np.maximum(hi, b_y[j]), hi)
+    return cls_light & (lo > thr), cls_dark & (hi < thr)
 
 
 def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_rows, banded, beside_y,
@@ -1185,6 +1231,7 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     # one run from the bottom upward
     skip = max(1, int(round(PELLET_BOTTOM_SKIP_FRACTION * width)))
     is_solid = (dev >= PELLET_MIN_OPACITY) & fin
+    shows = _rows_that_show(b_rows[:, 3], cls_light, cls_dark, shift, banded)
     unknown = ~fin
     # the lowest rows show the glass bottom's dark edge (refraction at grazing angles,
     # blur): they can neither confirm nor end a solid
@@ -1219,7 +1266,11 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
         dev_s = np.full(rows.size, np.inf)
         dev_s[low] = _opacity_dev(np.broadcast_to(ln_s, (int(low.sum()), 4)), ln_b[low], (t_c, s_c),
                                   k_lo[low], k_hi[low], shift[low])
-        unknown |= ~is_solid & (dev_s < PELLET_MIN_OPACITY)
+        # ... and rows that read nearer the solid's own reading than anything the liquid
+        # gives (a black solid over a dark band, just under the opacity threshold there) are
+        # the solid's as much as the liquid's: they do not end it either
+        d_solid = (np.abs(np.log(np.maximum(i4, 1e-4)) - ln_s) * PELLET_CHANNEL_WEIGHTS).max(axis=1)
+        unknown |= ~is_solid & ((dev_s < PELLET_MIN_OPACITY) | (low & (d_solid < dev)))
     unknown &= ~(textured & in_bottom)          # band texture seen: liquid, the walk ends there
     allowed = is_solid | unknown
     last = len(rows) - 1
@@ -1229,7 +1280,7 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     walked = np.arange(j + 1, last + 1)
     solid_idx = walked[is_solid[walked]]
     if solid_idx.size == 0:
-        return _no_solid(cls_dark, rows.size - skip, width, mm_per_px, banded), info
+        return _no_solid(*shows, rows.size - skip, width, mm_per_px, banded), info
     top_j = int(solid_idx.min())
     start = int(solid_idx.max())
     run = slice(top_j, start + 1)
@@ -1296,7 +1347,7 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     min_px = PELLET_MIN_HEIGHT_PX if mm_per_px is None else max(PELLET_MIN_HEIGHT_PX - 1,
                                                                 PELLET_MIN_HEIGHT_MM / mm_per_px)
     if height_px < min_px or contrast < PELLET_MIN_CONTRAST_DE00 or follow > PELLET_MAX_BAND_FOLLOW:
-        return _no_solid(cls_dark, rows.size - skip, width, mm_per_px, banded), info
+        return _no_solid(*shows, rows.size - skip, width, mm_per_px, banded), info
     # colour of the solid: the axis strip over the run, highlights out
     srows = rows[run][is_solid[run]]
     px = win.lin[srows, a0:a1].reshape(-1, 3)
@@ -1315,7 +1366,9 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     return PelletMeasurement(present=True, height_mm=height_mm, height_mm_sd=height_sd,
                              lab=tuple(float(v) for v in lab), lab_sd=tuple(float(v) for v in sd),
                              n_pixels=int(px.shape[0]), height_px=float(height_px),
-                             contrast_de00=contrast), info
+                             contrast_de00=contrast,
+                             seen_over_light=bool((is_solid[run] & shows[0][run]).any()),
+                             seen_over_dark=bool((is_solid[run] & shows[1][run]).any())), info
 
 
 def _tube_edge_width(y_win, region, win) -> float:

@@ -354,13 +354,14 @@ def test_no_solid_says_when_a_white_solid_could_hide_against_a_light_band():
     from tubevision.measure import _no_solid
 
     dark = np.zeros(100, bool)
-    assert _no_solid(dark, 90, 60.0, 0.1, True).light_solid_hidden          # all light
-    dark[85] = True                                                          # 0.5 mm up: seen
-    assert not _no_solid(dark, 90, 60.0, 0.1, True).light_solid_hidden
+    assert _no_solid(~dark, dark, 90, 60.0, 0.1, True).light_solid_hidden          # all light
+    dark[85] = True                                                                 # 0.5 mm up: seen
+    assert not _no_solid(~dark, dark, 90, 60.0, 0.1, True).light_solid_hidden
     dark[:] = False
-    dark[60] = True                                                          # 3 mm up: too high
-    assert _no_solid(dark, 90, 60.0, 0.1, True).light_solid_hidden
-    assert _no_solid(np.ones(100, bool), 90, 60.0, 0.1, False).light_solid_hidden   # plain backdrop
+    dark[60] = True                                                                 # 3 mm up: too high
+    assert _no_solid(~dark, dark, 90, 60.0, 0.1, True).light_solid_hidden
+    plain = np.ones(100, bool)
+    assert _no_solid(plain, ~plain, 90, 60.0, 0.1, False).light_solid_hidden       # plain backdrop
 
 
 def test_no_solid_says_when_a_black_solid_could_hide_against_a_dark_band():
@@ -368,10 +369,39 @@ def test_no_solid_says_when_a_black_solid_could_hide_against_a_dark_band():
     from tubevision.measure import _no_solid
 
     dark = np.zeros(100, bool)
-    dark[70:] = True                                                         # bottom 2 mm+ all dark
-    m = _no_solid(dark, 90, 60.0, 0.1, True)
+    dark[70:] = True                                                                # bottom 2 mm+ all dark
+    m = _no_solid(~dark, dark, 90, 60.0, 0.1, True)
     assert m.dark_solid_hidden and not m.light_solid_hidden
-    dark[88] = False                                                         # one light row 0.2 mm up
-    assert not _no_solid(dark, 90, 60.0, 0.1, True).dark_solid_hidden
-    assert not _no_solid(np.zeros(100, bool), 90, 60.0, 0.1, True).dark_solid_hidden   # all light
-    assert not _no_solid(np.ones(100, bool), 90, 60.0, 0.1, False).dark_solid_hidden   # plain backdrop
+    dark[88] = False                                                                # one light row 0.2 mm up
+    assert not _no_solid(~dark, dark, 90, 60.0, 0.1, True).dark_solid_hidden
+    none = np.zeros(100, bool)
+    assert not _no_solid(~none, none, 90, 60.0, 0.1, True).dark_solid_hidden       # all light
+    plain = np.ones(100, bool)
+    assert not _no_solid(plain, ~plain, 90, 60.0, 0.1, False).dark_solid_hidden   # plain backdrop
+
+
+def test_no_solid_band_edge_rows_show_neither_solid():
+    # Rows at a band edge (neither light nor dark: the backdrop beside the tube changes within
+    # the registration shift there) cannot show a solid of either shade; a zone of edge and
+    # dark rows therefore hides a black solid (the bench case: a grey-black pellet over a
+    # dark band whose top edge ran through the pellet was missed and called absent, because
+    # the edge rows were counted as showing it), and edge and light rows hide a white one.
+    from tubevision.measure import _no_solid
+
+    light, dark = np.zeros(100, bool), np.zeros(100, bool)
+    light[:80] = True                      # light band ... 8 mm up
+    dark[86:] = True                       # edge rows 80-85, dark band from 0.4 mm below the zone top
+    m = _no_solid(light, dark, 90, 60.0, 0.1, True)       # zone: rows 75-89 (1.5 mm at 0.1 mm/px)
+    assert m.dark_solid_hidden is False                   # rows 75-79 are light: a black solid shows
+    m = _no_solid(light, dark, 90, 60.0, 0.05, True)      # zone: rows 60-89 hold light rows too
+    assert not m.dark_solid_hidden and not m.light_solid_hidden
+    light[75:80] = False                                  # the light band ends 1.5 mm up: edge rows
+    m = _no_solid(light, dark, 90, 60.0, 0.1, True)
+    assert m.dark_solid_hidden and not m.light_solid_hidden
+    # the mirror: edge and light rows only
+    m = _no_solid(dark, light, 90, 60.0, 0.1, True)
+    assert m.light_solid_hidden and not m.dark_solid_hidden
+    # a rack bar in front of the bottom (rows neither light nor dark): neither solid shows
+    hidden = np.zeros(100, bool)
+    m = _no_solid(hidden, hidden, 90, 60.0, 0.1, True)
+    assert m.light_solid_hidden and m.dark_solid_hidden

@@ -90,3 +90,71 @@ def test_colour_within_a_few_de00_of_truth(measured):
           for t, m in zip(truth["tubes"], ms)]
     assert max(de) < 4.0, de
     assert float(np.median(de)) < 1.5, de
+
+
+@pytest.mark.parametrize("band_mm,seed", [(4.0, 3), (2.0, 12)])
+def test_a_solid_is_found_or_said_to_be_hidden_at_every_band_phase(band_mm, seed):
+    """[synthetic] Whatever band lies behind a tube's bottom, a 2.5-3 mm settled solid is
+    either found or reported as possibly hidden there (``dark_solid_hidden`` for a black
+    one, ``light_solid_hidden`` for a white one): never silently missed, which would turn
+    into a wrong 'absent' call; and clear water never shows a solid. The backdrop is moved
+    under the rack in steps of an eighth of a band over one period of its light and dark
+    bands (``band_shift_mm``); the printable backdrop's 4 mm bands, and 2 mm ones, which
+    look as a 4 mm band does from twice as far (half the pixels per band). Before the band-edge rows were counted as hiding a black solid, a
+    grey-black pellet over a dark band whose edge ran through it was missed with neither
+    flag set at several of these phases; before the backdrop behind a row near an edge was
+    allowed any fraction of a row out of register, the water read a 1 mm grey "solid" at
+    some (one opaque row half-way down a light-to-dark edge just above the glass bottom); on
+    the narrow bands a black solid was missed where its dark-band rows read just under the
+    opacity threshold (they ended the solid), or where its only light rows lay within the
+    registration reach of a dark band (they were counted as able to show it)."""
+    from tubevision.card.detect import find_card
+    from tubevision.card.fit import fit_card_correction
+    from tubevision.card.reference import load_card_reference
+    from tubevision.measure import measure_tube, mm_per_px_at
+
+    tubes = (TubeSpec("black-precipitate"), TubeSpec("white-precipitate"), TubeSpec("water"))
+    wrong = []
+    for shift in np.arange(0.0, 2.0 * band_mm, band_mm / 8.0):
+        r = render_scene(SceneSpec(tubes=tubes, backdrop="hbands", width_px=1344, height_px=1008,
+                                   band_mm=band_mm, band_shift_mm=float(shift)), seed=seed)
+        det = find_card(r.pixels)
+        corr = fit_card_correction(det, load_card_reference(None))
+        for g, t in zip(_regions(r.truth), r.truth["tubes"]):
+            p = measure_tube(r.pixels, g, correction=corr,
+                             mm_per_px=mm_per_px_at(det.homography_mm_to_px, (g.axis_col, g.inner_bottom))).pellet
+            if t["contents"] == "water":
+                if p.present:
+                    wrong.append(("water read as a solid", float(shift)))
+                continue
+            flag = p.dark_solid_hidden if t["contents"] == "black-precipitate" else p.light_solid_hidden
+            if not (p.present or flag):
+                wrong.append((t["contents"], float(shift)))
+    assert not wrong, wrong
+
+
+def test_a_solid_seen_against_a_light_band_is_said_so_and_a_white_one_never():
+    """[synthetic] ``seen_over_light`` says a found solid was confirmed opaque in front of a
+    light band, which the judge takes as proof that the band hides no such solid in another
+    tube; so it must never be said of a white solid (it reads like the light band there), and
+    is said of a yellow one (its colour shows; studio yellow precipitate) wherever its
+    bottom rows stand in front of a light band. Backdrop moved in 1 mm steps over a period."""
+    from tubevision.card.detect import find_card
+    from tubevision.card.fit import fit_card_correction
+    from tubevision.card.reference import load_card_reference
+    from tubevision.measure import measure_tube, mm_per_px_at
+
+    tubes = (TubeSpec("yellow-precipitate"), TubeSpec("white-precipitate"))
+    yellow_seen = 0
+    for shift in np.arange(0.0, 8.0, 1.0):
+        r = render_scene(SceneSpec(tubes=tubes, backdrop="hbands", width_px=1344, height_px=1008,
+                                   band_shift_mm=float(shift)), seed=5)
+        det = find_card(r.pixels)
+        corr = fit_card_correction(det, load_card_reference(None))
+        yellow, white = (measure_tube(r.pixels, g, correction=corr,
+                                      mm_per_px=mm_per_px_at(det.homography_mm_to_px, (g.axis_col, g.inner_bottom))).pellet
+                         for g in _regions(r.truth))
+        assert not (white.present and white.seen_over_light), shift
+        assert yellow.present, shift
+        yellow_seen += yellow.seen_over_light
+    assert yellow_seen >= 3, yellow_seen          # half the phases put light rows behind it

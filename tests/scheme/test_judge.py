@@ -114,6 +114,130 @@ def test_control_whose_light_solid_could_not_show_blames_the_photo_not_the_reage
     assert j.retake_positions == (2,)
 
 
+def test_retake_asked_only_where_the_other_band_could_change_the_judgement():
+    # The chloride step's positive names white and grey solids (silver chloride darkens in
+    # light, common practice), but with a white solid in the control a bottom in front of a
+    # dark band hides nothing the step could see: no retake for it. Moving the rack would put
+    # the control's own white solid in front of a light band (the bench's retake pass lost
+    # good steps that way). A bottom in front of a light band still asks for one.
+    import dataclasses
+
+    dark_blank = dataclasses.replace(clear(2), dark_solid_hidden=True)
+    j = judge_step(G1, "chloride-precipitation", [settled(0, *WHITE), settled(1, *WHITE), dark_blank], LABELS3)
+    assert j.retake_positions == () and not any("photograph again" in w for w in j.warnings)
+    light_blank = dataclasses.replace(clear(2), light_solid_hidden=True)
+    j = judge_step(G1, "chloride-precipitation", [settled(0, *WHITE), settled(1, *WHITE), light_blank], LABELS3)
+    assert j.retake_positions == (3,)
+    # a control failing because its light solid could not show: the retake is for it
+    light_ctrl = dataclasses.replace(clear(0), light_solid_hidden=True)
+    j = judge_step(G1, "chloride-precipitation", [light_ctrl, settled(1, *WHITE), clear(2)], LABELS3)
+    assert j.retake_positions == (1,)
+    # no positive control labelled: which shade the step's solid has is unknown, both count
+    lab = parse_labels("2=unknown A,3=blank", 3)
+    j = judge_step(G1, "chloride-precipitation", [clear(0), dark_blank, light_blank], lab)
+    assert j.retake_positions == (2, 3)
+    # acidification: the control is positive by its cloud, no solid to compare: no retake
+    j = judge_step(G1, "acidification", [cloudy(0), dataclasses.replace(clear(1), light_solid_hidden=True),
+                                         clear(2)], LABELS3)
+    assert _verdicts(j)["unknown A"] == "negative" and j.retake_positions == ()
+    # bottoms at a band edge (both flags: neither shade behind them) are moved by half a band,
+    # since a whole band's move puts them at the next edge; one shade behind: a whole band
+    j = judge_step(G1, "chloride-precipitation", [settled(0, *WHITE), settled(1, *WHITE), light_blank], LABELS3)
+    assert j.retake_shift_bands == 1.0
+    edge = dataclasses.replace(light_blank, dark_solid_hidden=True)
+    edge_sample = dataclasses.replace(clear(1), light_solid_hidden=True, dark_solid_hidden=True)
+    j = judge_step(G1, "chloride-precipitation", [settled(0, *WHITE), edge_sample, edge], LABELS3)
+    assert j.retake_positions == (2, 3) and j.retake_shift_bands == 0.5
+    assert any("half a band" in w for w in j.warnings)
+
+
+def test_state_word_contradicted_by_the_measured_turbidity_is_not_judged():
+    # The state word is a classifier's; the turbidity a physical measure of scattered light.
+    # A spoiled control (the HCl replaced by water) whose clear liquid the classifier called
+    # "cloudy" (white) while nothing scatters must not pass: the bench's photo pass let such
+    # a control through. Clear-but-scattering is refused the same way.
+    spoiled = cloudy(0, turbidity=0.0)
+    j = judge_step(G1, "chloride-precipitation", [spoiled, settled(1, *WHITE), clear(2)], LABELS3)
+    assert j.failed and j.control_failures[0].position == 1
+    assert "no scattered light" in j.control_failures[0].reason
+    assert _verdicts(j)["unknown A"] == "inconclusive"
+    # a sample: "cloudy" without scattering is no precipitate, nor is it evidence of none
+    j = judge_step(G1, "chloride-precipitation", [settled(0, *WHITE), cloudy(1, turbidity=0.005), clear(2)], LABELS3)
+    assert _verdicts(j)["unknown A"] == "inconclusive" and not j.failed
+    # "clear" over a liquid that scatters plainly (a faint cloud the classifier missed)
+    j = judge_step(G1, "chloride-precipitation", [settled(0, *WHITE), clear(1, turbidity=0.4), clear(2)], LABELS3)
+    assert _verdicts(j)["unknown A"] == "inconclusive"
+    # a measured cloud, and a cloudy word over a settled solid, are judged as before
+    j = judge_step(G1, "chloride-precipitation", [cloudy(0), cloudy(1, pellet=WHITE, turbidity=0.0), clear(2)],
+                   LABELS3)
+    assert _verdicts(j) == {"control": "positive", "unknown A": "positive", "blank": "negative"}
+    # the margin is two standard uncertainties of the turbidity when it has one
+    import dataclasses
+
+    unsure = dataclasses.replace(cloudy(1, turbidity=0.01), turbidity_sd=0.02)
+    j = judge_step(G1, "chloride-precipitation", [settled(0, *WHITE), unsure, clear(2)], LABELS3)
+    assert _verdicts(j)["unknown A"] == "positive"
+
+
+def test_no_solid_stands_where_the_controls_solid_was_seen_against_the_same_band():
+    # The chromate step's yellow solid (PbCrO4, common practice) shows its colour in front of
+    # a light band, where a white one reads like the liquid. When the control's solid was
+    # confirmed opaque there (measure: seen_over_light), a sample's bottom in front of a light
+    # band hides nothing: its "no solid" is a negative, and no retake is asked for.
+    import dataclasses
+
+    chromate = clear(1, CHROMATE_YELLOW, "yellow")
+    hidden = dataclasses.replace(chromate, light_solid_hidden=True)
+    ctrl = settled(0, *YELLOW, liquid_lab=CHROMATE_YELLOW, liquid_name="yellow")
+    blank = clear(2, CHROMATE_YELLOW, "yellow")
+    j = judge_step(G1, "chromate-test", [ctrl, hidden, blank], LABELS3)
+    assert _verdicts(j)["unknown A"] == "inconclusive" and j.retake_positions == (2,)
+    seen = dataclasses.replace(ctrl, pellet_seen_over_light=True)
+    j = judge_step(G1, "chromate-test", [seen, hidden, blank], LABELS3)
+    assert _verdicts(j)["unknown A"] == "negative" and j.retake_positions == ()
+    # seen over a dark band says nothing about the light band
+    j = judge_step(G1, "chromate-test", [dataclasses.replace(ctrl, pellet_seen_over_dark=True), hidden, blank],
+                   LABELS3)
+    assert _verdicts(j)["unknown A"] == "inconclusive"
+    # the flag comes from the measurement (observation_from) and the record
+    m = SimpleNamespace(index=0, empty=False, liquid=SimpleNamespace(lab=CHROMATE_YELLOW, turbidity=0.0),
+                        pellet=SimpleNamespace(present=True, height_mm=2.0, lab=YELLOW[1], seen_over_light=True))
+    c = SimpleNamespace(state="settled", confidence=0.9, liquid_colour_name="yellow", pellet_colour_name="yellow")
+    assert observation_from(m, c).pellet_seen_over_light
+    rec = {"index": 0, "state": "settled", "confidence": 0.9, "liquid": {"lab": list(CHROMATE_YELLOW)},
+           "pellet": {"present": True, "height_mm": 2.0, "lab": list(YELLOW[1]), "seen_over_light": True}}
+    assert observation_from_record(rec).pellet_seen_over_light
+
+
+def test_blank_clear_by_its_measurements_is_judged_despite_a_doubtful_word():
+    # A blank guards against contamination, which shows as a solid or a cloud; the measure
+    # stage tests both physically. A blank the classifier calls clear at 0.48 (under the
+    # scheme's 0.5) with no solid and no scattered light passes; samples stay inconclusive.
+    import dataclasses
+
+    doubt = clear(2, turbidity=0.0, confidence=0.48)
+    j = judge_step(G1, "ammonia-treatment", [settled(0, *BLACK), settled(1, *BLACK), doubt], LABELS3)
+    assert _verdicts(j) == {"control": "positive", "unknown A": "positive", "blank": "negative"} and not j.failed
+    # not when it scatters light, shows a solid, or is called something else
+    for bad in (clear(2, turbidity=0.04, confidence=0.48), cloudy(2, turbidity=0.0, confidence=0.48),
+                dataclasses.replace(doubt, pellet_present=True, pellet_height_mm=0.8, pellet_lab=BLACK[1],
+                                    pellet_colour_name="black")):
+        j = judge_step(G1, "ammonia-treatment", [settled(0, *BLACK), settled(1, *BLACK), bad], LABELS3)
+        assert j.failed and j.control_failures[0].role == "blank"
+    # not when its bottom stood where the control's kind of solid could hide
+    hidden = dataclasses.replace(doubt, dark_solid_hidden=True)
+    j = judge_step(G1, "ammonia-treatment", [settled(0, *BLACK), settled(1, *BLACK), hidden], LABELS3)
+    assert j.failed
+    # a light-band bottom hides nothing a black solid could be: judged
+    light = dataclasses.replace(doubt, light_solid_hidden=True)
+    j = judge_step(G1, "ammonia-treatment", [settled(0, *BLACK), settled(1, *BLACK), light], LABELS3)
+    assert not j.failed
+    # a sample's doubtful word is still inconclusive
+    j = judge_step(G1, "ammonia-treatment", [settled(0, *BLACK), clear(1, turbidity=0.0, confidence=0.48),
+                                              clear(2)], LABELS3)
+    assert _verdicts(j)["unknown A"] == "inconclusive"
+
+
 def test_cloudy_blank_fails_and_is_diagnosed():
     obs = [settled(0, *WHITE), clear(1), cloudy(2, turbidity=0.3)]
     j = judge_step(G1, "chloride-precipitation", obs, LABELS3)

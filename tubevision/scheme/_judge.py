@@ -7,7 +7,10 @@ positive control and the blank photographed beside it.
 Rules (no chemistry here; every appearance comes from the scheme file):
 
 1. A tube whose state confidence is under the scheme's ``min_confidence`` is
-   inconclusive.
+   inconclusive (a blank excepted when its measurements alone show it clear with nothing
+   settled, :func:`_measured_clear`), and so is one whose state word the measured
+   turbidity contradicts (:func:`_state_clash`: "cloudy" with no scattered light, "clear"
+   plainly scattering).
 2. It is positive if it matches the step's positive appearance and not the
    negative one, negative the other way round; matching both or neither, or
    lacking a reference a threshold needs (no blank labelled…), is
@@ -76,6 +79,9 @@ class TubeObservation:
         backdrop, where a white solid would not show (measure stage).
     dark_solid_hidden : bool — no solid found, but the bottom showed only a dark band,
         where a black solid would not show (measure stage).
+    pellet_seen_over_light, pellet_seen_over_dark : bool — a solid was found, and rows of it
+        in front of a light (dark) band were confirmed opaque there: that band does not hide
+        it (measure stage's ``seen_over_light``/``seen_over_dark``).
     """
 
     index: int
@@ -91,6 +97,8 @@ class TubeObservation:
     turbidity_sd: float | None = None
     light_solid_hidden: bool = False
     dark_solid_hidden: bool = False
+    pellet_seen_over_light: bool = False
+    pellet_seen_over_dark: bool = False
 
 
 def _lab_or_none(v) -> tuple[float, float, float] | None:
@@ -134,6 +142,8 @@ def observation_from(measurement: Any, call: Any) -> TubeObservation:
         turbidity_sd=_num_or_none(getattr(liq, "turbidity_sd", None)) if liq is not None else None,
         light_solid_hidden=bool(getattr(pel, "light_solid_hidden", False)) and not present,
         dark_solid_hidden=bool(getattr(pel, "dark_solid_hidden", False)) and not present,
+        pellet_seen_over_light=bool(getattr(pel, "seen_over_light", False)) and present,
+        pellet_seen_over_dark=bool(getattr(pel, "seen_over_dark", False)) and present,
     )
 
 
@@ -152,6 +162,8 @@ def observation_from_record(tube: dict) -> TubeObservation:
         turbidity_sd=_num_or_none(liq.get("turbidity_sd")),
         light_solid_hidden=bool(pel.get("light_solid_hidden", False)) and not present,
         dark_solid_hidden=bool(pel.get("dark_solid_hidden", False)) and not present,
+        pellet_seen_over_light=bool(pel.get("seen_over_light", False)) and present,
+        pellet_seen_over_dark=bool(pel.get("seen_over_dark", False)) and present,
     )
 
 
@@ -231,6 +243,10 @@ class StepJudgement:
     """1-based positions of labelled tubes whose bottoms showed only the band that would hide
     the solid this step looks for (light for a white solid, dark for a black one): photograph
     again with the other band behind them."""
+    retake_shift_bands: float = 1.0
+    """How far to move the rack against the backdrop for that photo, in band widths: 1, or
+    0.5 when most of those tubes' bottoms stood at a band edge (neither shade behind them:
+    both hidden-solid flags), where a whole band's move puts them at the next edge."""
 
     @property
     def failed(self) -> bool:
@@ -367,10 +383,62 @@ def _holds(cond: Condition, obs: TubeObservation, q: dict) -> tuple[bool | None,
     return True, []
 
 
+CLOUDY_MIN_TURBIDITY = 0.03
+"""Turbidity (record units) below which, by the measurement, a liquid scatters no light: a
+"cloudy" state word is then contradicted. Reason: between clear liquids' 95th percentile
+(~0.01) and the faintest cloud of the studio dilution series (~0.07) in
+bench/bench_measure.py (our threshold; revise with the measure stage)."""
+
+CLEAR_MAX_TURBIDITY = 0.05
+"""Turbidity (record units) above which, by the measurement, a liquid scatters light: a
+"clear" state word is then contradicted. Reason: the largest turbidity above the blank the
+bundled schemes accept for a liquid that "stays clear" (``max_turbidity_above_blank``)."""
+
+
+def _state_clash(obs: TubeObservation) -> str:
+    """Why the state word disagrees with the measured turbidity, or "" when it does not.
+
+    The state word comes from a learned classifier; the turbidity is a physical measure of
+    scattered light (measure stage). A liquid called cloudy that scatters nothing, or called
+    clear that plainly scatters, is a misreading either way, so neither appearance is
+    judged from it (a clear water control read "cloudy" passed a spoiled reagent). Only
+    where no solid is present (a settled solid under clear liquid is a cloudy slip's usual
+    truth, and the solid still speaks for itself) and the turbidity is measured; two
+    standard uncertainties of margin when it has one."""
+    if obs.turbidity is None or obs.pellet_present:
+        return ""
+    sd = 2.0 * (obs.turbidity_sd or 0.0)
+    if obs.state == "cloudy" and obs.turbidity + sd < CLOUDY_MIN_TURBIDITY:
+        return (f"state cloudy, but the measured turbidity {obs.turbidity:.3f} shows no scattered light "
+                f"(below {CLOUDY_MIN_TURBIDITY:g})")
+    if obs.state == "clear" and obs.turbidity - sd > CLEAR_MAX_TURBIDITY:
+        return (f"state clear, but the measured turbidity {obs.turbidity:.3f} shows scattered light "
+                f"(above {CLEAR_MAX_TURBIDITY:g})")
+    return ""
+
+
+def _measured_clear(obs: TubeObservation) -> bool:
+    """Whether the measurements alone show a clear liquid with nothing settled, as the word
+    "clear" says: no solid found and the turbidity below :data:`CLOUDY_MIN_TURBIDITY` by two
+    standard uncertainties. A blank's check is one-sided (a contaminated reagent shows as a
+    solid or a cloud), and these are the physical tests of both; so a blank that the
+    classifier calls clear with a confidence just under the scheme's ``min_confidence`` is
+    still judged when they agree and its bottom did not stand where the step's solid, of the
+    control's shade, could hide (:func:`judge_step`; in the bench, clear water blanks at
+    0.48-0.50 lost whole steps with "check the reagent"). Samples stay under the confidence
+    rule."""
+    if obs.state != "clear" or obs.pellet_present or obs.turbidity is None:
+        return False
+    return obs.turbidity + 2.0 * (obs.turbidity_sd or 0.0) < CLOUDY_MIN_TURBIDITY
+
+
 def _pattern_verdict(step: Step, obs: TubeObservation, q: dict, min_conf: float) -> tuple[str, str]:
     """Verdict from the step's appearances and the confidence alone, with its reason."""
     if obs.confidence < min_conf:
         return "inconclusive", f"state confidence {obs.confidence:.2f} below {min_conf:.2f}"
+    clash = _state_clash(obs)
+    if clash:
+        return "inconclusive", clash
     pos, why_pos = _holds(step.positive.condition, obs, q)
     neg, why_neg = _holds(step.negative.condition, obs, q)
     if pos is True and neg is True:
@@ -487,13 +555,37 @@ def _hidden(obs: TubeObservation, kind: str) -> bool:
 
 
 def _control_solid_is(obs_list, roles, kind: str) -> bool:
-    """Whether a positive control in the photo shows a ``kind`` ("light"/"dark") settled solid."""
+    """Whether a positive control in the photo shows a ``kind`` ("light"/"dark") settled solid
+    that the band of that shade could hide: one not confirmed opaque in front of such a band
+    in this photo. A control's light solid confirmed opaque in front of a light band (a
+    yellow one shows its colour there; a white one does not) shows that this step's solid is
+    seen against that band, so a sample's bottom in front of one hides nothing."""
     is_kind = _HIDING[kind][2]
     for pos, role in roles.items():
         o = obs_list[pos - 1]
         if role == "control" and o.pellet_present and o.pellet_lab is not None and is_kind(o.pellet_lab[0]):
-            return True
+            # a dark solid in front of a dark band differs from it only by the little light
+            # the band sends back (near the camera's flare): not relied on for another tube
+            if not (kind == "light" and o.pellet_seen_over_light):
+                return True
     return False
+
+
+def _retake_matters(st: Step, kind: str, obs_list, roles, prelim) -> bool:
+    """Whether a photo with the other band behind the bottoms could change this step's
+    judgement for a ``kind`` ("light"/"dark") solid: the step looks for such a solid, and
+    either a positive control shows one (so a sample's or the blank's solid would look like
+    it), or a control failed because such a solid could not have shown, or no control is
+    labelled to say which shade the step's solid has. A step whose positive names both
+    shades (a light solid that may darken to grey) but whose control shows a light one
+    gains nothing from moving a dark solid's band, and moving it would put the control's
+    own light solid in front of a light band."""
+    if not _expects_solid(st.positive.condition, kind):
+        return False
+    controls = [pos for pos, role in roles.items() if role == "control"]
+    if not controls or _control_solid_is(obs_list, roles, kind):
+        return True
+    return any(_hidden(obs_list[pos - 1], kind) and prelim[pos][0] != "positive" for pos in controls)
 
 
 def _band_advice(kind: str) -> str:
@@ -565,6 +657,14 @@ def judge_step(scheme: Scheme, step: str, observations: Sequence[TubeObservation
         pv = _position(st, obs, q, refs)
         q["position_blank_to_control"] = pv
         verdict, why = _pattern_verdict(st, obs, q, scheme.min_confidence)
+        if (role == "blank" and obs.confidence < scheme.min_confidence and _measured_clear(obs)
+                and not any(_hidden(obs, k) and _expects_solid(st.positive.condition, k)
+                            and ("control" not in by_role or _control_solid_is(obs_list, roles, k))
+                            for k in _HIDING)):
+            # the blank guards against a solid or a cloud; the measurements test both
+            v2, _ = _pattern_verdict(st, obs, q, 0.0)
+            if v2 == "negative":
+                verdict, why = v2, ""
         diag = _diagnose(scheme, st, role, obs, q)
         prelim[pos] = (verdict, why, q, diag)
         label = labels[pos]
@@ -643,7 +743,7 @@ def judge_step(scheme: Scheme, step: str, observations: Sequence[TubeObservation
                                     quantities=q, warnings=tuple(diag)))
     retake: set[int] = set()
     for kind in _HIDING:
-        if not _expects_solid(st.positive.condition, kind):
+        if not _retake_matters(st, kind, obs_list, roles, prelim):
             continue
         hidden = [pos for pos in sorted(prelim) if _hidden(obs_list[pos - 1], kind)]
         if hidden:
@@ -653,13 +753,19 @@ def judge_step(scheme: Scheme, step: str, observations: Sequence[TubeObservation
                             + f" in front of a {'light' if kind == 'light' else 'dark'} band only, where the "
                               f"{kind} solid this step looks for would not show: move the rack so a "
                               f"{_HIDING[kind][3]} band is behind the bottoms and photograph again")
+    at_edge = [pos for pos in retake if obs_list[pos - 1].light_solid_hidden and obs_list[pos - 1].dark_solid_hidden]
+    shift_bands = 0.5 if retake and 2 * len(at_edge) > len(retake) else 1.0
+    if shift_bands == 0.5:
+        warnings.append(f"{where}: " + ", ".join(f"T{p}" for p in sorted(at_edge))
+                        + (" has its bottom" if len(at_edge) == 1 else " have their bottoms")
+                        + " at a band's edge, in front of neither shade: move the rack by half a band")
     for f in failures:
         warnings.append(f"{where}: {f}")
     summary = scheme_summary(scheme)
     return StepJudgement(scheme_name=scheme.name, scheme_source=summary["source"], scheme_file=summary["file"],
                          scheme_sha256=scheme.sha256, step=st.name, outcomes=tuple(outcomes),
                          control_failures=tuple(failures), warnings=tuple(dict.fromkeys(warnings)),
-                         retake_positions=tuple(sorted(retake)),
+                         retake_positions=tuple(sorted(retake)), retake_shift_bands=shift_bands,
                          step_info={"title": st.title, "reagent": st.reagent, "fraction": st.fraction,
                                     "source": st.source, "reactions": list(st.reactions),
                                     "hazards": list(st.hazards), "safety": " ".join(scheme.safety.split())})
