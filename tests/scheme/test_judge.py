@@ -465,3 +465,30 @@ def test_observation_from_the_real_measure_and_classify_outputs():
         assert o.pellet_present == m.pellet.present
     j = judge_step(G1, "chloride-precipitation", obs, LABELS3)
     assert len(j.outcomes) == 3
+
+
+def test_record_carries_what_the_photo_showed_of_each_solid():
+    """[synthetic] The observation a step is judged from is the same whether it comes from
+    the analysis in memory or from the written record (``tubevision conclude`` reads
+    records): in particular the pellet's ``seen_over_light``/``seen_over_dark``, which
+    decide whether a sample's 'no solid' beside a yellow control stands."""
+    from pathlib import Path
+
+    from tubevision.analysis import AnalysisOptions, analyze_photo, load_shared
+    from tubevision.image import load_photo
+    from tubevision.record.build import build_record
+    from tubevision.scheme import observation_from, observation_from_record
+
+    photo = load_photo(Path(__file__).resolve().parents[2] / "sample_images" / "demo-chloride-step.jpg")
+    options = AnalysisOptions()
+    analysis = analyze_photo(photo, options, **load_shared(options))
+    record = build_record(analysis)
+    seen = 0
+    for m, c, tube in zip(analysis.measurements, analysis.calls, record["tubes"]):
+        a, b = observation_from(m, c), observation_from_record(tube)
+        assert (a.pellet_present, a.pellet_seen_over_light, a.pellet_seen_over_dark,
+                a.light_solid_hidden, a.dark_solid_hidden) == \
+               (b.pellet_present, b.pellet_seen_over_light, b.pellet_seen_over_dark,
+                b.light_solid_hidden, b.dark_solid_hidden), tube["id"]
+        seen += a.pellet_seen_over_light or a.pellet_seen_over_dark
+    assert seen >= 1      # the demo's white solids sit in front of a dark band

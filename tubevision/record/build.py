@@ -153,6 +153,11 @@ def _tube(analysis, i: int) -> dict[str, Any]:
     if p.present:
         pellet["height_mm_sd"] = _num(getattr(p, "height_mm_sd", None), 2)
         pellet["lab_sd"] = _vec(getattr(p, "lab_sd", None))
+        # rows of the solid confirmed opaque in front of a light / a dark band: a step judged
+        # again from the record (conclude) then reads the solid as the photo showed it
+        for key in ("seen_over_light", "seen_over_dark"):
+            if getattr(p, key, False):
+                pellet[key] = True
     outcome = None
     if analysis.judgement is not None:
         outcome = analysis.judgement.outcome_for(i) if hasattr(analysis.judgement, "outcome_for") else None
