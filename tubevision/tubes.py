@@ -1509,16 +1509,18 @@ def _aligned(side: np.ndarray, inner: np.ndarray, lo: int, hi: int, max_shift: i
     b = np.log(inner.mean(axis=1) + 1e-3)
     if a[lo:hi].std() < 0.1 or b[lo:hi].std() < 0.1:
         return side
-    best, best_c, c0 = 0, -np.inf, None
-    for k in range(-max_shift, max_shift + 1):
-        x = a[lo + max_shift + k:hi - max_shift + k]
-        y = b[lo + max_shift:hi - max_shift]
-        c = float(np.corrcoef(x, y)[0, 1])
-        if k == 0:
-            c0 = c
-        if c > best_c:
-            best, best_c = k, c
-    if best == 0 or c0 is None or best_c - c0 < 0.02:
+    # Pearson correlation at every lag at once: rows of X are a[lo + max_shift + k : ...]
+    n = hi - lo - 2 * max_shift
+    X = np.lib.stride_tricks.sliding_window_view(a[lo:hi], n)          # (2 max_shift + 1, n)
+    y = b[lo + max_shift:hi - max_shift]
+    xc = X - X.mean(axis=1, keepdims=True)
+    yc = y - y.mean()
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r = (xc @ yc) / np.sqrt((xc * xc).sum(axis=1) * float(yc @ yc))
+    r = np.where(np.isfinite(r), r, -np.inf)
+    j = int(np.argmax(r))                  # first best, as the lags run from -max_shift up
+    best, best_c, c0 = j - max_shift, float(r[j]), float(r[max_shift])
+    if best == 0 or not np.isfinite(c0) or best_c - c0 < 0.02:
         return side
     idx = np.clip(np.arange(side.shape[0]) + best, 0, side.shape[0] - 1)
     return side[idx]
