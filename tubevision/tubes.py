@@ -669,25 +669,27 @@ def _link(peaks: list, w: float) -> list:
     by_strip: dict[int, list] = {}
     for s, c, v in peaks:
         by_strip.setdefault(s, []).append((c, v))
+    reach = 0.35 * w
+    inf = float("inf")
     for s in sorted(by_strip):
         still = []
         for t in active:
             (still if s - t.s[-1] <= max_gap else done).append(t)
         active = still
-        pred = np.array([t.predict(s) for t in active] + [np.inf])
+        # plain lists: a strip holds a few peaks and tracks, where numpy's per-call cost dominates
+        pred = [t.predict(s) for t in active]
         for c, v in sorted(by_strip[s], key=lambda t: -t[1]):
             best = None
-            if len(active):
-                d = np.abs(pred[:len(active)] - c)
-                k = int(np.argmin(d))
-                if d[k] < 0.35 * w:
+            if pred:
+                k = min(range(len(pred)), key=lambda i: abs(pred[i] - c))   # the first nearest
+                if abs(pred[k] - c) < reach:
                     best = k
             if best is None:
                 active.append(_Track(s, c, v))
-                pred = np.append(pred[:-1], [np.inf, np.inf])
+                pred.append(inf)
             else:
                 active[best].add(s, c, v)
-                pred[best] = np.inf   # one peak per track and strip
+                pred[best] = inf   # one peak per track and strip
     tracks = done + active
     return tracks
 
