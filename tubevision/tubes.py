@@ -8,6 +8,7 @@ photo, x0/y0 inclusive, x1/y1 exclusive. Inside the code arrays are indexed
 from __future__ import annotations
 
 import json
+import math
 from dataclasses import dataclass, field, replace
 
 import numpy as np
@@ -1137,7 +1138,12 @@ def _verify(c, ev: _Evidence, out: list, pending: list, refit: bool = True) -> N
             if abs(db) * (ymids[1] - ymids[0]) >= 1.0:
                 a_new = c.a + cents[0] - db * ymids[0]
                 return _verify(replace(c, a=float(a_new), b=float(c.b + db)), ev, out, pending, refit=False)
-    il, ir = int(np.argmin(np.abs(us - ul))), int(np.argmin(np.abs(us - ur)))
+    # the sample nearest a position u: us[i] = i - half, and the lower one on an exact tie
+    # (as np.argmin of |us - u| picks the first)
+    def cu(u: float) -> int:
+        return min(max(int(math.ceil(u - 0.5)) + half, 0), us.size - 1)
+
+    il, ir = cu(ul), cu(ur)
     el = AX[:, max(0, il - 1):il + 2].max(axis=1)
     er = AX[:, max(0, ir - 1):ir + 2].max(axis=1)
     both = np.minimum(el, er)
@@ -1152,7 +1158,6 @@ def _verify(c, ev: _Evidence, out: list, pending: list, refit: bool = True) -> N
     m = max(2, int(round(0.06 * w2)))
     valley = np.ones(rows.size, bool)
     for u_wall, sgn in ((ul, -1), (ur, 1)):
-        cu = lambda u: int(np.clip(np.argmin(np.abs(us - u)), 0, us.size - 1))  # noqa: E731
         line = G[:, min(cu(u_wall), cu(u_wall - sgn * m)):max(cu(u_wall), cu(u_wall - sgn * m)) + 1].min(axis=1)
         out_v = G[:, cu(u_wall + sgn * m)]
         in_v = G[:, cu(u_wall - sgn * 2 * m)]
