@@ -591,13 +591,28 @@ def _hmax(a: np.ndarray, half: int) -> np.ndarray:
     return cv2.dilate(a, np.ones((1, 2 * half + 1), np.uint8), borderType=cv2.BORDER_REPLICATE)
 
 
+_HMAX_CACHE: dict = {}
+"""Running maxima of the wall profile by half-width, for the profile last searched (trial
+widths share them: the walls' tolerance and the central third take few distinct sizes)."""
+
+
+def _hmax_p(P: np.ndarray, half: int) -> np.ndarray:
+    """:func:`_hmax` of the wall profile ``P``, kept for the other trial widths of one search."""
+    if _HMAX_CACHE.get("P") is not P:
+        _HMAX_CACHE.clear()
+        _HMAX_CACHE["P"] = P
+    if half not in _HMAX_CACHE:
+        _HMAX_CACHE[half] = _hmax(P, half)
+    return _HMAX_CACHE[half]
+
+
 def _pair_score(P: np.ndarray, w: float) -> np.ndarray:
     """S_w of step 2 for every strip and column (float32 (n_strips, W))."""
     tol = max(1, int(round(WALL_TOLERANCE_FRACTION * w)))
-    Pm = _hmax(P, tol)
+    Pm = _hmax_p(P, tol)
     h = int(round(w / 2))
     left, right = _shift(Pm, h), _shift(Pm, -h)
-    cen = _hmax(P, max(1, int(round(w / 6))))
+    cen = _hmax_p(P, max(1, int(round(w / 6))))
     return np.minimum(left, right) - CENTRE_PENALTY * cen
 
 
