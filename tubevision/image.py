@@ -405,14 +405,39 @@ def reduced_copy(pixels: np.ndarray, *, max_side: int) -> tuple[np.ndarray, floa
     src = pixels if pixels.dtype == np.uint8 else (pixels >> 8).astype(np.uint8)
     if max(h, w) <= max_side:
         return src.copy(), 1.0
-    small = src
-    while max(small.shape[:2]) // 2 >= max_side / REDUCE_SLACK and min(small.shape[:2]) >= 2:
-        hh, ww = small.shape[:2]
-        small = cv2.resize(small[: hh - hh % 2, : ww - ww % 2], (ww // 2, hh // 2), interpolation=cv2.INTER_AREA)
+    # how many halvings, from the shapes alone
+    hh, ww, k = h, w, 0
+    while max(hh, ww) // 2 >= max_side / REDUCE_SLACK and min(hh, ww) >= 2:
+        hh, ww, k = hh // 2, ww // 2, k + 1
+    small = _halved(src, k)
     if max(small.shape[:2]) > REDUCE_SLACK * max_side:
         scale = max(h, w) / float(max_side)
         size = (max(1, round(w / scale)), max(1, round(h / scale)))
         small = cv2.resize(small, size, interpolation=cv2.INTER_AREA)
-    elif small is src:
-        small = src.copy()
+    else:
+        small = small.copy()          # the halvings are kept for the next copy of this photo
     return small, (w / small.shape[1] + h / small.shape[0]) / 2.0
+
+
+_HALVINGS: dict = {"src": None, "chain": []}
+"""The successive 2 × 2 halvings of the photo last reduced: the card's and the tubes' searches
+reduce the same photo to different sizes through the same halvings. The photo itself is
+held, so the identity test cannot match another array; the stages never write into a photo."""
+
+
+def _halved(src: np.ndarray, k: int) -> np.ndarray:
+    """``src`` halved ``k`` times by 2 × 2 area means (odd last rows/columns dropped); the
+    arrays returned are shared and must not be written to."""
+    import cv2
+
+    if k == 0:
+        return src
+    if _HALVINGS["src"] is not src:
+        _HALVINGS["src"], _HALVINGS["chain"] = src, []
+    chain = _HALVINGS["chain"]
+    while len(chain) < k:
+        prev = chain[-1] if chain else src
+        hh, ww = prev.shape[:2]
+        chain.append(cv2.resize(prev[: hh - hh % 2, : ww - ww % 2], (ww // 2, hh // 2),
+                                interpolation=cv2.INTER_AREA))
+    return chain[k - 1]
