@@ -689,6 +689,16 @@ def mm_per_px_at(homography_mm_to_px, point_px, direction=(0.0, 1.0)) -> float:
 
 # --------------------------------------------------------------------------- main
 
+def _median_axis1(a: np.ndarray) -> np.ndarray:
+    """``np.median(a, axis=1)`` for finite ``a`` by one partition (the same values: the middle
+    element, or the mean of the two middle ones), without np.median's NaN bookkeeping."""
+    n = a.shape[1]
+    if n % 2:
+        return np.partition(a, n // 2, axis=1)[:, n // 2]
+    part = np.partition(a, [n // 2 - 1, n // 2], axis=1)
+    return part[:, n // 2 - 1:n // 2 + 1].mean(axis=1)
+
+
 def measure_tube(pixels: np.ndarray, region, *, correction=None, mm_per_px: float | None = None,
                  turbidity_curve=None) -> TubeMeasurement:
     """Measure colour, turbidity and settled solid of one tube.
@@ -732,7 +742,7 @@ def measure_tube(pixels: np.ndarray, region, *, correction=None, mm_per_px: floa
 
     # backdrop beside the tube, row by row
     if win.side_cols.size:
-        beside_rgb = np.median(win.lin[:, win.side_cols], axis=1)
+        beside_rgb = _median_axis1(win.lin[:, win.side_cols])
         beside_y = _luminance(beside_rgb)
     else:
         beside_y = np.full(n_rows, np.nan)
