@@ -1001,6 +1001,23 @@ def _turbidity(inner_y, inner_rgb, good, use_light, use_dark, beside_y, beside_r
     return dict(value=max(0.0, raw), raw=raw, sd=sd, ratio=1.0, method="plain-veil")
 
 
+def _reach_extremes(v: np.ndarray, shift: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Least and most of ``v`` (n[, C]) over the rows within each of ``rows``' registration
+    reach (``shift[row]`` rows either way, clipped to the ends): the backdrop a row of the
+    view through the tube may stand in front of."""
+    n = v.shape[0]
+    reach = shift[rows]
+    lo, hi = v[rows].copy(), v[rows].copy()
+    for s_ in range(1, int(reach.max(initial=0)) + 1):
+        ok = s_ <= reach
+        if v.ndim > 1:
+            ok = ok[:, None]
+        for j in (np.clip(rows - s_, 0, n - 1), np.clip(rows + s_, 0, n - 1)):
+            lo = np.where(ok, np.minimum(lo, v[j]), lo)
+            hi = np.where(ok, np.maximum(hi, v[j]), hi)
+    return lo, hi
+
+
 def _opacity_dev(ln_i, ln_b, model, k_lo, k_hi, shift) -> np.ndarray:
     """Per row, how far the light seen through the tube is from any liquid-like reading.
 
@@ -1055,14 +1072,7 @@ def _opacity_dev(ln_i, ln_b, model, k_lo, k_hi, shift) -> np.ndarray:
         span = maximum_filter1d(y, 2 * m + 1, mode="nearest") - minimum_filter1d(y, 2 * m + 1, mode="nearest")
         near = np.flatnonzero(span > 0.5 * PELLET_MIN_OPACITY)
         if near.size:
-            lb_lo, lb_hi = ln_b[near].copy(), ln_b[near].copy()
-            for s_ in range(-m, m + 1):
-                if s_ == 0:
-                    continue
-                ok = (np.abs(s_) <= shift[near])[:, None]
-                j = np.clip(near + s_, 0, n - 1)
-                lb_lo = np.where(ok, np.minimum(lb_lo, ln_b[j]), lb_lo)
-                lb_hi = np.where(ok, np.maximum(lb_hi, ln_b[j]), lb_hi)
+            lb_lo, lb_hi = _reach_extremes(ln_b, shift, near)
             best[near] = np.minimum(best[near], dev_at(near, lb_lo, lb_hi))
     return best
 
@@ -1147,13 +1157,7 @@ def _rows_that_show(b_y: np.ndarray, cls_light: np.ndarray, cls_dark: np.ndarray
     if not banded or cls_light.sum() < 1 or cls_dark.sum() < 1:
         return cls_light, cls_dark
     thr = math.sqrt(max(float(np.median(b_y[cls_light])), 1e-6) * max(float(np.median(b_y[cls_dark])), 1e-6))
-    n = b_y.size
-    lo, hi = b_y.copy(), b_y.copy()
-    for s_ in range(1, int(np.max(shift)) + 1):
-        ok = s_ <= shift
-        for j in (np.clip(np.arange(n) - s_, 0, n - 1), np.clip(np.arange(n) + s_, 0, n - 1)):
-            lo = np.where(ok, np.minimum(lo, b_y[j]), lo)
-            hi = np.where(ok, np.maximum(hi, b_y[j]), hi)
+    lo, hi = _reach_extremes(b_y, shift, np.arange(b_y.size))
     return cls_light & (lo > thr), cls_dark & (hi < thr)
 
 
@@ -1209,7 +1213,6 @@ def _find_pellet(win: _Window, region, correction, mm_per_px, light_rows, dark_r
     flare = PELLET_FLARE_FRACTION * float(np.median(b_rows[use_l, 3]))
     i4 = i4 + flare
     b_rows = b_rows + flare
-    absorb = -np.log(np.maximum(i4, 1e-4) / b_rows)                            # (n, 4)
     i_l, b_l = np.median(i4[use_l], axis=0), np.median(b_rows[use_l], axis=0)
     if have_dark:
         i_d, b_d = np.median(i4[ref_dark_sel], axis=0), np.median(b_rows[ref_dark_sel], axis=0)

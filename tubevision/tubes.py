@@ -1708,6 +1708,20 @@ def _striped_backdrop(rot: np.ndarray, valid: np.ndarray) -> bool:
     return runs >= STRIPE_MIN_RUNS
 
 
+def _search_mask(shape: tuple[int, int], quad, scale: float) -> np.ndarray:
+    """Where the finder searches on a reduced copy of ``shape`` (uint8, 1 = search): all but
+    the card's quad (full-resolution corners, or None), with a margin round it for its edge
+    and shadow."""
+    import cv2
+
+    valid = np.ones(shape, np.uint8)
+    if quad is not None:
+        q = (quad + 0.5) / scale - 0.5
+        c = q.mean(axis=0)
+        cv2.fillPoly(valid, [np.round(c + (q - c) * 1.08).astype(np.int32)], 0)
+    return valid
+
+
 def _turned(smallf: np.ndarray, valid: np.ndarray, roll: float):
     """The reduced copy turned upright by ``roll`` degrees about its centre: (2×3 matrix,
     turned float pixels, turned valid mask eroded by one pixel off its edge)."""
@@ -1731,16 +1745,10 @@ def _tubes_on_their_side(pixels: np.ndarray, quad) -> bool:
     turned by a quarter turn. A photo whose orientation tag was lost (messaging apps strip
     it) shows the rack on its side; the stages after this one read tubes upright, so the
     person is told to turn the photo rather than have turned tubes read."""
-    import cv2
-
     from .image import reduced_copy
 
     small, scale = reduced_copy(pixels, max_side=COARSE_MAX_SIDE_PX)
-    valid = np.ones(small.shape[:2], np.uint8)
-    if quad is not None:
-        q = (quad + 0.5) / scale - 0.5
-        c = q.mean(axis=0)
-        cv2.fillPoly(valid, [np.round(c + (q - c) * 1.08).astype(np.int32)], 0)
+    valid = _search_mask(small.shape[:2], quad, scale)
     sm = np.ascontiguousarray(np.rot90(small)).astype(np.float32)
     va = np.ascontiguousarray(np.rot90(valid))
     _, rot, rvalid = _turned(sm, va, _estimate_roll_deg(sm.mean(axis=2), va.astype(bool)))
@@ -1793,12 +1801,7 @@ def find_tubes(pixels: np.ndarray, *, expected: int | None = None, exclude_quad=
     for side in (COARSE_MAX_SIDE_PX, FIND_MAX_SIDE_PX):
         small, scale = reduced_copy(pixels, max_side=side)
         hs, ws = small.shape[:2]
-        valid = np.ones((hs, ws), np.uint8)
-        if quad is not None:
-            q = (quad + 0.5) / scale - 0.5
-            c = q.mean(axis=0)
-            q = c + (q - c) * 1.08     # a margin round the card (its edge and shadow)
-            cv2.fillPoly(valid, [np.round(q).astype(np.int32)], 0)
+        valid = _search_mask((hs, ws), quad, scale)
         smallf = small.astype(np.float32)
         gray = smallf.mean(axis=2)
         roll = _estimate_roll_deg(gray, valid.astype(bool))
