@@ -227,3 +227,18 @@ def test_any_printable_label_round_trips_through_report_and_csv():
         assert cell == (("'" + label) if label[0] in "=+-@" else label)
 
     check()
+
+
+def test_each_warning_once_and_the_image_colours_explained():
+    """[synthetic] A step's warning that the photo's warnings already gather is listed once;
+    the annotated photo's caption names what every colour of the drawing marks (the drawing's
+    own table, tubevision.record.annotate.LEGEND)."""
+    from tubevision.record.annotate import LEGEND
+
+    step = "group1 step chloride-precipitation: T2 has its bottom in front of a light band only"
+    rec = make_record(warnings=["card partly shaded", step],
+                      scheme={"name": "group1", "step": "chloride-precipitation", "warnings": [step]})
+    text = read_text(render_report(rec, small_png())).text
+    assert text.count(step) == 1
+    for name, _ in LEGEND:
+        assert name in text, name

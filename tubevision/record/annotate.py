@@ -11,13 +11,13 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["ANNOTATED_MAX_SIDE_PX", "annotate", "encode_png"]
+__all__ = ["ANNOTATED_MAX_SIDE_PX", "LEGEND", "STATE_COLOURS", "annotate", "encode_png"]
 
 ANNOTATED_MAX_SIDE_PX = 2000
 """Longer side of the annotated image: enough to read every tube's id on a
 screen, small enough to encode in well under a second (reason)."""
 
-_STATE_COLOURS = {  # RGB, chosen for contrast on light backdrops (our own choice)
+STATE_COLOURS = {  # RGB, chosen for contrast on light backdrops (our own choice)
     "clear": (0, 150, 255),
     "cloudy": (255, 140, 0),
     "settled": (200, 0, 200),
@@ -26,6 +26,10 @@ _STATE_COLOURS = {  # RGB, chosen for contrast on light backdrops (our own choic
 _LIQUID = (0, 200, 80)
 _BOTTOM = (230, 30, 30)
 _CARD = (255, 220, 0)
+
+LEGEND = tuple((state, rgb) for state, rgb in STATE_COLOURS.items()) + (
+    ("liquid column measured", _LIQUID), ("bottom region (settled solid)", _BOTTOM), ("card", _CARD))
+"""What each colour of the annotated image marks, for a caption or legend."""
 
 
 def annotate(pixels: np.ndarray, record: dict, *, max_side: int = ANNOTATED_MAX_SIDE_PX) -> np.ndarray:
@@ -61,7 +65,7 @@ def annotate(pixels: np.ndarray, record: dict, *, max_side: int = ANNOTATED_MAX_
                     cv2.FONT_HERSHEY_SIMPLEX, font, _CARD, thick, cv2.LINE_AA)
     for tube in record.get("tubes", []):
         x0, y0, x1, y1 = tube["bbox"]
-        colour = _STATE_COLOURS.get(tube.get("state"), (255, 255, 255))
+        colour = STATE_COLOURS.get(tube.get("state"), (255, 255, 255))
         # cv2.rectangle treats both corners as inclusive: the box's end is x1 - 1, y1 - 1.
         cv2.rectangle(canvas, pt(x0, y0), pt(x1 - 1, y1 - 1), colour, thick, cv2.LINE_AA)
         g = tube.get("geometry") or {}

@@ -268,12 +268,29 @@ def _calibration(record: dict) -> str:
     return "".join(out)
 
 
+def _legend() -> str:
+    """The annotated image's colours in words, a swatch each (from the drawing's own table,
+    :data:`tubevision.record.annotate.LEGEND`): the box colours by state, then the rest."""
+    from .annotate import LEGEND, STATE_COLOURS
+
+    def item(name, rgb):
+        r, g, b = rgb
+        return (f'<span class="swatch" role="img" aria-label="{esc(name)}" '
+                f'style="background:#{r:02x}{g:02x}{b:02x}"></span> {esc(name)}')
+
+    states = ", ".join(item(n, c) for n, c in LEGEND if n in STATE_COLOURS)
+    rest = ", ".join(item(n, c) for n, c in LEGEND if n not in STATE_COLOURS)
+    return f"box colour by state: {states}; outlined: {rest}"
+
+
 def _all_warnings(record: dict) -> list[tuple[str, str]]:
     items: list[tuple[str, str]] = []
     for w in record.get("warnings") or []:
         items.append(("Photo:", str(w)))
+    photo_level = {str(w) for w in record.get("warnings") or []}
     for w in get(record, "scheme", "warnings", default=[]) or []:
-        items.append(("Scheme:", str(w)))
+        if str(w) not in photo_level:      # the photo's warnings gather the step's already
+            items.append(("Scheme:", str(w)))
     for tube in record.get("tubes") or []:
         if isinstance(tube, dict):
             tw = list(tube.get("warnings") or [])
@@ -423,8 +440,9 @@ def render_report(record: dict, annotated_png: bytes | None) -> str:
     if annotated_png:
         body.append('<section id="photo"><h2>Annotated photo</h2><figure>'
                     f'<img src="{png_data_uri(annotated_png)}" alt="{esc("Annotated photo " + str(photo))}">'
-                    "<figcaption>Boxes and ids mark the tubes as the tool found them; see the table "
-                    "for the measurements.</figcaption></figure></section>")
+                    f"<figcaption>Boxes and ids mark the tubes as the tool found them ({_legend()}); "
+                    "see the table for the measurements.</figcaption>"
+                    "</figure></section>")
     body.append(_tube_table(record))
     body.append(_calibration(record))
     body.append(f'<section id="warnings"><h2>Warnings</h2>{warnings_list(_all_warnings(record))}</section>')
